@@ -1,3 +1,16 @@
 //! cwaudit: measures the keying quality of a CW transmitter from receiver audio.
+//!
+//! Layers: [`input`] (WAV files, later the sound card) → [`dsp`] (streaming
+//! blocks) → [`analysis`] (a plain [`analysis::report::Report`]) →
+//! [`present`] (terminal, JSON, CSV). [`synth`] makes test signals with
+//! stated truth.
 
+pub mod analysis;
+pub mod cli;
+pub mod demo;
+pub mod dsp;
+pub mod error;
+pub mod fsutil;
+pub mod input;
+pub mod present;
 pub mod synth;

@@ -1,0 +1,268 @@
+//! Analysis: runs the streaming pipeline over a source and turns what the
+//! DSP measured into a [`Report`].
+
+pub mod element;
+pub mod report;
+pub mod timing;
+pub mod tracker;
+pub mod warnings;
+
+use std::path::Path;
+
+use crate::dsp::downconvert::{Band, Downconverter};
+use crate::dsp::edges::rise_edge;
+use crate::dsp::levels::StateLevels;
+use crate::dsp::stats::{median, spread};
+use crate::dsp::survey::{Candidate, Survey, SurveyResult};
+use crate::error::{CwError, Result};
+use crate::input::wav::WavSource;
+use crate::input::FrameSource;
+use report::{Element, InputInfo, Report, Summary};
+use tracker::ToneTracker;
+
+/// Noise bandwidth the SNR refers to, Hz (a wide SSB filter).
+pub const SNR_BANDWIDTH_HZ: f64 = 2500.0;
+/// Frames read per block.
+pub const BLOCK_FRAMES: usize = 8192;
+
+/// Choices the user can make about an analysis.
+#[derive(Clone, Debug, Default)]
+pub struct Options {
+    /// 1-based channel to analyse; None picks the strongest keyed tone.
+    pub channel: Option<u16>,
+    /// Pitch to analyse, Hz; None picks the strongest keyed tone.
+    pub tone_hz: Option<f64>,
+}
+
+/// Which tone to follow, from the survey and the options.
+fn choose(s: &SurveyResult, opt: &Options, path: &Path) -> Result<Option<Candidate>> {
+    if let Some(c) = opt.channel {
+        if c == 0 || c as usize > s.channels.len() {
+            return Err(CwError::Usage(format!(
+                "{}: has {} channel(s); --channel {} does not exist",
+                path.display(),
+                s.channels.len(),
+                c
+            )));
+        }
+    }
+    let in_channel = |k: &&Candidate| opt.channel.is_none_or(|c| k.channel + 1 == c as usize);
+    if let Some(f) = opt.tone_hz {
+        let near = s
+            .candidates
+            .iter()
+            .filter(in_channel)
+            .filter(|k| (k.frequency_hz - f).abs() < 50.0)
+            .max_by(|a, b| a.on_power.total_cmp(&b.on_power));
+        return Ok(Some(near.cloned().unwrap_or(Candidate {
+            channel: opt.channel.map_or(0, |c| c as usize - 1),
+            frequency_hz: f,
+            mean_power: 0.0,
+            on_power: 0.0,
+            duty: 0.0,
+            keyed: true,
+            prominence_db: 0.0,
+        })));
+    }
+    Ok(s.candidates
+        .iter()
+        .filter(in_channel)
+        .filter(|k| k.keyed)
+        .max_by(|a, b| a.on_power.total_cmp(&b.on_power))
+        .cloned())
+}
+
+/// 10-90 % time of an ideal step through the envelope filter, s.
+pub fn rise_floor_s(fs: u32, center_hz: f64) -> f64 {
+    let mut dc = Downconverter::new(fs, Band::envelope(fs as f64, center_hz));
+    let n = (0.3 * fs as f64) as usize;
+    let x: Vec<f32> = (0..n)
+        .map(|i| {
+            if i >= n / 2 {
+                (2.0 * std::f64::consts::PI * center_hz * i as f64 / fs as f64).cos() as f32
+            } else {
+                0.0
+            }
+        })
+        .collect();
+    let mut z = Vec::new();
+    dc.push(&x, &mut z);
+    dc.flush(&mut z);
+    let env: Vec<f64> = z.iter().map(|v| v.norm() as f64).collect();
+    let lv = StateLevels {
+        low: 0.0,
+        high: 1.0,
+    };
+    let q = env.iter().position(|&v| v >= 0.5).unwrap_or(0);
+    rise_edge(&env, &lv, q, 0, env.len() - 1)
+        .map(|e| e.width() / dc.out_rate_hz())
+        .unwrap_or(0.0)
+}
+
+/// Analyses one WAV file.
+pub fn analyze_file(path: &Path, opt: &Options) -> Result<Report> {
+    let mut src = WavSource::open(path)?;
+    let info = src.info().clone();
+    let nch = info.channels as usize;
+    let mut survey = Survey::new(info.sample_rate_hz, nch);
+    let mut buf = Vec::new();
+    while src.read_frames(&mut buf, BLOCK_FRAMES)? > 0 {
+        survey.push(&buf);
+    }
+    let s = survey.finish();
+    let cand = choose(&s, opt, path)?;
+    let channel = cand
+        .as_ref()
+        .map(|c| c.channel)
+        .or(opt.channel.map(|c| c as usize - 1))
+        .unwrap_or_else(|| {
+            // No keyed tone: report the loudest channel.
+            (0..nch)
+                .max_by(|&a, &b| s.channels[a].sum_sq.total_cmp(&s.channels[b].sum_sq))
+                .unwrap_or(0)
+        });
+    let cs = &s.channels[channel];
+    let frames = info.frames.unwrap_or(cs.samples);
+    let input = InputInfo {
+        path: path.display().to_string(),
+        sample_rate_hz: info.sample_rate_hz,
+        channels: info.channels,
+        channel_used: channel as u16 + 1,
+        bits: info.bits,
+        sample_format: info.sample_format.clone(),
+        duration_s: frames as f64 / info.sample_rate_hz as f64,
+        peak_dbfs: 20.0 * cs.peak_abs.max(1e-12).log10(),
+        clipped_samples: cs.clipped_samples,
+    };
+    let Some(cand) = cand else {
+        return Ok(no_signal(input, &s));
+    };
+
+    let mut tr = ToneTracker::new(info.sample_rate_hz, cand.frequency_hz);
+    let mut src = WavSource::open(path)?;
+    let mut mono = Vec::with_capacity(BLOCK_FRAMES);
+    while src.read_frames(&mut buf, BLOCK_FRAMES)? > 0 {
+        mono.clear();
+        mono.extend(buf.iter().skip(channel).step_by(nch));
+        tr.push(&mono);
+    }
+    tr.finish();
+    Ok(build_report(input, &tr, info.sample_rate_hz))
+}
+
+fn no_signal(input: InputInfo, s: &SurveyResult) -> Report {
+    let mut warnings = vec![format!(
+        "No keyed tone was found in {}: nothing to measure.",
+        input.path
+    )];
+    if let Some(c) = s
+        .candidates
+        .iter()
+        .find(|c| c.channel + 1 == input.channel_used as usize)
+    {
+        warnings.push(format!(
+            "There is a steady tone at {:.1} Hz ({:.1} dBFS) that is never keyed.",
+            c.frequency_hz,
+            10.0 * c.on_power.max(1e-30).log10()
+        ));
+    }
+    Report {
+        tool: "cwaudit".into(),
+        version: env!("CARGO_PKG_VERSION").into(),
+        input,
+        summary: Summary {
+            snr_bandwidth_hz: SNR_BANDWIDTH_HZ,
+            ..Default::default()
+        },
+        elements: vec![],
+        warnings,
+    }
+}
+
+/// Turns a finished tracker into a report.
+pub fn build_report(input: InputInfo, tr: &ToneTracker, fs: u32) -> Report {
+    let els = tr.elements();
+    let durations: Vec<f64> = els.iter().map(|e| e.end_s - e.start_s).collect();
+    let gaps: Vec<Option<f64>> = (0..els.len())
+        .map(|i| {
+            els.get(i + 1)
+                .filter(|_| !els[i].cut)
+                .map(|n| n.start_s - els[i].end_s)
+        })
+        .collect();
+    let t = timing::analyse(&durations, &gaps);
+    let dc = tr.downconverter();
+    let band = dc.band();
+    let noise = tr.noise_power();
+    let elements: Vec<Element> = els
+        .iter()
+        .enumerate()
+        .map(|(i, e)| Element {
+            index: i + 1,
+            start_s: e.start_s,
+            duration_s: e.end_s - e.start_s,
+            kind: t.kinds[i],
+            rise_ms: e.rise_s.map(|v| v * 1e3),
+            fall_ms: e.fall_s.map(|v| v * 1e3),
+            chirp_hz: e.chirp_hz,
+            chirp_raw_hz: e.chirp_raw_hz,
+            chirp_noise_hz: e.chirp_noise_hz,
+            level_dbfs: 10.0 * e.level_power.max(1e-30).log10(),
+            frequency_hz: e.frequency_hz,
+            gap_before_s: if i > 0 { gaps[i - 1] } else { None },
+            trace: e.trace.clone(),
+        })
+        .collect();
+    let col = |f: &dyn Fn(&Element) -> Option<f64>| -> Vec<f64> {
+        elements.iter().filter_map(f).collect()
+    };
+    let levels = col(&|e| Some(e.level_dbfs));
+    let level_dbfs = (!levels.is_empty()).then(|| median(&levels));
+    let snr_db = match (level_dbfs, noise) {
+        (Some(l), Some(pn)) if pn > 0.0 => {
+            // SNR = A^2 * Bn / (Pn * 2500): carrier power over the noise in 2.5 kHz.
+            let a2 = 10f64.powf(l / 10.0);
+            Some(10.0 * (a2 * dc.noise_bandwidth_hz() / (pn * SNR_BANDWIDTH_HZ)).log10())
+        }
+        _ => None,
+    };
+    let freqs = col(&|e| Some(e.frequency_hz));
+    let summary = Summary {
+        keyed_signal_found: !elements.is_empty(),
+        tone_hz: (!freqs.is_empty()).then(|| median(&freqs)),
+        level_dbfs,
+        snr_db,
+        snr_bandwidth_hz: SNR_BANDWIDTH_HZ,
+        wpm: t.wpm,
+        unit_ms: t.unit_s.map(|u| u * 1e3),
+        dah_dit_ratio: t.dah_dit_ratio,
+        mark_space_ratio: t.mark_space_ratio,
+        rise_ms: spread(&col(&|e| e.rise_ms)),
+        fall_ms: spread(&col(&|e| e.fall_ms)),
+        chirp_hz: spread(&col(&|e| Some(e.chirp_hz))),
+        chirp_raw_hz: spread(&col(&|e| Some(e.chirp_raw_hz))),
+        element_count: elements.len(),
+        dit_count: elements
+            .iter()
+            .filter(|e| e.kind == report::Kind::Dit)
+            .count(),
+        dah_count: elements
+            .iter()
+            .filter(|e| e.kind == report::Kind::Dah)
+            .count(),
+        envelope_bandwidth_hz: (band.hi_hz + band.hi_rolloff_hz / 2.0)
+            - (band.lo_hz - band.lo_rolloff_hz / 2.0),
+        rise_floor_ms: rise_floor_s(fs, tr.center_hz()) * 1e3,
+        baseband_rate_hz: dc.out_rate_hz(),
+    };
+    let mut rep = Report {
+        tool: "cwaudit".into(),
+        version: env!("CARGO_PKG_VERSION").into(),
+        input,
+        summary,
+        elements,
+        warnings: vec![],
+    };
+    rep.warnings = warnings::collect(&rep, tr);
+    rep
+}

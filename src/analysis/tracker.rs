@@ -1,0 +1,388 @@
+//! The streaming measurement of one tone: downconversion, a detection
+//! envelope, cumulative IEEE 181 state levels, the hysteresis segmenter, and
+//! per-element measurement. Samples arrive in blocks of any size; memory is a
+//! few seconds of baseband plus the per-element results. The segmenter runs
+//! `LOOKAHEAD_S` behind the newest sample so that state levels already include
+//! the signal that follows, which lets the first elements of a file be
+//! measured with levels from more than themselves.
+
+use std::collections::VecDeque;
+
+use rustfft::num_complex::{Complex32, Complex64};
+
+use super::element::{measure, Context, Measured};
+use crate::dsp::downconvert::{Band, Downconverter};
+use crate::dsp::levels::{LevelHistogram, StateLevels};
+use crate::dsp::segment::{Mark, Segmenter, OFF_FRACTION, ON_FRACTION};
+
+/// Delay of the segmenter behind the newest sample, s.
+pub const LOOKAHEAD_S: f64 = 3.0;
+/// Baseband kept before a rise and after a fall for edge searches, s.
+pub const PRE_S: f64 = 0.06;
+pub const POST_S: f64 = 0.06;
+/// Width of the detection envelope's coherent moving average, s.
+pub const DETECT_WINDOW_S: f64 = 0.002;
+/// Key-downs longer than this are closed and measured in pieces, s.
+pub const MAX_ELEMENT_S: f64 = 20.0;
+/// Marks and gaps shorter than this are glitches (150 WPM would be 8 ms), s.
+pub const MIN_MARK_S: f64 = 0.004;
+pub const MIN_GAP_S: f64 = 0.004;
+/// Gap samples this close to an edge do not count towards the noise, s.
+pub const NOISE_GUARD_S: f64 = 0.025;
+
+/// One element as the tracker reports it (times in the input's time base).
+#[derive(Clone, Debug)]
+pub struct TrackedElement {
+    pub start_s: f64,
+    pub end_s: f64,
+    pub rise_s: Option<f64>,
+    pub fall_s: Option<f64>,
+    pub level_power: f64,
+    pub early_late_db: Option<f64>,
+    /// Settled frequency, Hz (absolute).
+    pub frequency_hz: f64,
+    pub chirp_hz: f64,
+    pub chirp_raw_hz: f64,
+    pub chirp_noise_hz: f64,
+    /// True when the key-down was longer than `MAX_ELEMENT_S` and was cut.
+    pub cut: bool,
+    /// Frequency trace: (s since 50 % rise, Hz deviation from settled).
+    pub trace: Vec<(f32, f32)>,
+}
+
+/// Noise power from key-up gaps: variance about the mean of 10 ms blocks,
+/// which leaves a steady carrier (backwave) out of the noise.
+#[derive(Clone, Debug, Default)]
+struct NoiseAcc {
+    block: Vec<Complex32>,
+    block_len: usize,
+    sum_dev: f64,
+    dof: f64,
+    up_power: f64,
+    up_count: f64,
+}
+
+impl NoiseAcc {
+    fn push(&mut self, z: Complex32) {
+        self.block.push(z);
+        self.up_power += z.norm_sqr() as f64;
+        self.up_count += 1.0;
+        if self.block.len() >= self.block_len {
+            self.close();
+        }
+    }
+    fn close(&mut self) {
+        let n = self.block.len();
+        if n >= 4 {
+            let m: Complex64 = self
+                .block
+                .iter()
+                .map(|v| Complex64::new(v.re as f64, v.im as f64))
+                .sum::<Complex64>()
+                / n as f64;
+            self.sum_dev += self
+                .block
+                .iter()
+                .map(|v| (Complex64::new(v.re as f64, v.im as f64) - m).norm_sqr())
+                .sum::<f64>();
+            self.dof += (n - 1) as f64;
+        }
+        self.block.clear();
+    }
+    fn power(&self) -> Option<f64> {
+        (self.dof >= 200.0).then(|| self.sum_dev / self.dof)
+    }
+}
+
+/// Streaming tracker of one tone in one channel.
+pub struct ToneTracker {
+    dc: Downconverter,
+    fs_d: f64,
+    center_hz: f64,
+    zbuf: VecDeque<Complex32>,
+    zbase: u64,
+    win: usize,
+    run: Complex64,
+    det: VecDeque<f32>,
+    detbase: u64,
+    hist: LevelHistogram,
+    levels: Option<StateLevels>,
+    since_levels: usize,
+    seg: Segmenter,
+    seg_q: u64,
+    lookahead: u64,
+    pre: u64,
+    post: u64,
+    max_el: u64,
+    guard: usize,
+    gap_fifo: VecDeque<Complex32>,
+    last_down: Option<u64>,
+    noise: NoiseAcc,
+    out: Vec<Complex32>,
+    elements: Vec<TrackedElement>,
+    unmeasured: usize,
+    cut_open: bool,
+}
+
+impl ToneTracker {
+    pub fn new(fs: u32, center_hz: f64) -> ToneTracker {
+        let dc = Downconverter::new(fs, Band::envelope(fs as f64, center_hz));
+        let fs_d = dc.out_rate_hz();
+        let win = ((DETECT_WINDOW_S * fs_d).round() as usize) | 1;
+        let s = |x: f64| (x * fs_d).round() as u64;
+        ToneTracker {
+            center_hz,
+            zbuf: VecDeque::new(),
+            zbase: 0,
+            win,
+            run: Complex64::new(0.0, 0.0),
+            det: VecDeque::new(),
+            detbase: 0,
+            hist: LevelHistogram::new(),
+            levels: None,
+            since_levels: 0,
+            seg: Segmenter::new(s(MIN_MARK_S), s(MIN_GAP_S)),
+            seg_q: 0,
+            lookahead: s(LOOKAHEAD_S),
+            pre: s(PRE_S),
+            post: s(POST_S),
+            max_el: s(MAX_ELEMENT_S),
+            guard: s(NOISE_GUARD_S) as usize,
+            gap_fifo: VecDeque::new(),
+            last_down: None,
+            noise: NoiseAcc {
+                block_len: s(0.01) as usize,
+                ..Default::default()
+            },
+            out: Vec::new(),
+            elements: Vec::new(),
+            unmeasured: 0,
+            cut_open: false,
+            fs_d,
+            dc,
+        }
+    }
+
+    pub fn downconverter(&self) -> &Downconverter {
+        &self.dc
+    }
+    pub fn center_hz(&self) -> f64 {
+        self.center_hz
+    }
+    pub fn levels(&self) -> Option<StateLevels> {
+        self.levels
+    }
+    /// Noise power per baseband sample (full envelope band), if measured.
+    pub fn noise_power(&self) -> Option<f64> {
+        self.noise.power()
+    }
+    /// Mean baseband power during key-up (noise plus any backwave).
+    pub fn key_up_power(&self) -> Option<f64> {
+        (self.noise.up_count > 0.0).then(|| self.noise.up_power / self.noise.up_count)
+    }
+    pub fn elements(&self) -> &[TrackedElement] {
+        &self.elements
+    }
+    /// Elements found by the comparator whose edges could not be measured.
+    pub fn unmeasured(&self) -> usize {
+        self.unmeasured
+    }
+
+    /// Feeds one channel's samples.
+    pub fn push(&mut self, samples: &[f32]) {
+        let mut out = std::mem::take(&mut self.out);
+        out.clear();
+        self.dc.push(samples, &mut out);
+        self.ingest(&out, false);
+        self.out = out;
+    }
+
+    /// Ends the stream: flushes the filter and measures what is left.
+    pub fn finish(&mut self) {
+        let mut out = Vec::new();
+        self.dc.flush(&mut out);
+        self.ingest(&out, true);
+    }
+
+    fn ingest(&mut self, zs: &[Complex32], last: bool) {
+        for &z in zs {
+            self.zbuf.push_back(z);
+            let head = self.zbase + self.zbuf.len() as u64 - 1;
+            self.run += Complex64::new(z.re as f64, z.im as f64);
+            let w = self.win as u64;
+            if head >= w {
+                let old = self.zbuf[(head - w - self.zbase) as usize];
+                self.run -= Complex64::new(old.re as f64, old.im as f64);
+            }
+            if head + 1 >= w {
+                let d = (self.run / w as f64).norm();
+                // det index = head - (w-1)/2
+                if self.det.is_empty() {
+                    self.detbase = head - (w - 1) / 2;
+                }
+                self.det.push_back(d as f32);
+                self.hist.add(d);
+                self.since_levels += 1;
+                if self.since_levels >= 600 || self.levels.is_none() {
+                    self.since_levels = 0;
+                    self.levels = self.hist.levels();
+                }
+            }
+            let det_head = self.detbase + self.det.len() as u64;
+            while self.seg_q + self.lookahead < det_head {
+                self.segment_one();
+            }
+            if !last {
+                self.trim();
+            }
+        }
+        if last {
+            let det_head = self.detbase + self.det.len() as u64;
+            while self.seg_q < det_head {
+                self.segment_one();
+            }
+            let (held, _open) = self.seg.finish(self.seg_q);
+            if let Some(m) = held {
+                self.measure_mark(m, false);
+            }
+            self.noise.close();
+        }
+    }
+
+    fn thresholds(&self) -> (f64, f64) {
+        match self.levels {
+            // Keying needs the states at least 6 dB apart.
+            Some(l) if l.high > 2.0 * l.low && l.high > 0.0 => {
+                (l.at(ON_FRACTION), l.at(OFF_FRACTION))
+            }
+            _ => (f64::INFINITY, f64::INFINITY),
+        }
+    }
+
+    fn segment_one(&mut self) {
+        let q = self.seg_q;
+        if q < self.detbase {
+            self.seg_q += 1;
+            return;
+        }
+        let v = self.det[(q - self.detbase) as usize] as f64;
+        let (on, off) = self.thresholds();
+        let was_on = self.seg.is_on();
+        let mark = self.seg.step(q, v, on, off);
+        if self.cut_open && !self.seg.is_on() {
+            self.cut_open = false;
+        }
+        if let Some(m) = mark {
+            self.measure_mark(m, false);
+        }
+        if self.seg.is_on() {
+            self.gap_fifo.clear();
+            if let Some(start) = self.seg.open_start() {
+                if q - start > self.max_el {
+                    if let Some(m) = self.seg.force_close(q) {
+                        self.measure_mark(m, true);
+                        self.cut_open = true;
+                    }
+                }
+            }
+        } else if self.seg.open_start().is_none() && !was_on {
+            let past_edge = self.last_down.is_none_or(|d| q >= d + self.guard as u64);
+            if past_edge && q >= self.zbase {
+                let z = self.zbuf[(q - self.zbase) as usize];
+                self.gap_fifo.push_back(z);
+                if self.gap_fifo.len() > self.guard {
+                    let z = self.gap_fifo.pop_front().expect("non-empty");
+                    self.noise.push(z);
+                }
+            }
+        }
+        self.seg_q += 1;
+    }
+
+    fn measure_mark(&mut self, m: Mark, cut: bool) {
+        let Some(levels) = self.levels else { return };
+        let a = m.up.saturating_sub(self.pre).max(self.zbase);
+        let head = self.zbase + self.zbuf.len() as u64;
+        let b = (m.down + self.post).min(head);
+        if b <= a + 8 || m.up < a || m.down >= b {
+            self.unmeasured += 1;
+            return;
+        }
+        let lo = self
+            .last_down
+            .map(|d| d.saturating_sub(a) as usize)
+            .filter(|&d| d < (m.up - a) as usize)
+            .unwrap_or(0);
+        self.last_down = Some(m.down);
+        let z: Vec<Complex32> = self
+            .zbuf
+            .range((a - self.zbase) as usize..(b - self.zbase) as usize)
+            .copied()
+            .collect();
+        let w = self.win as f64;
+        let pn = self.noise.power().unwrap_or(levels.low * levels.low * w);
+        let corr = |x: f64| (x * x - pn / w).max(0.0).sqrt();
+        let ctx = Context {
+            fs: self.fs_d,
+            levels: StateLevels {
+                low: corr(levels.low),
+                high: corr(levels.high),
+            },
+            noise_power: pn,
+        };
+        let Some(r): Option<Measured> =
+            measure(&z, (m.up - a) as usize, (m.down - a) as usize, lo, &ctx)
+        else {
+            self.unmeasured += 1;
+            return;
+        };
+        let t0 = self.dc.time_of(a);
+        let ts = |i: f64| t0 + i / self.fs_d;
+        let settled = r.chirp.settled_hz;
+        self.elements.push(TrackedElement {
+            start_s: ts(r.t50_rise),
+            end_s: ts(r.t50_fall),
+            rise_s: if self.cut_open {
+                None
+            } else {
+                r.rise_samples.map(|v| v / self.fs_d)
+            },
+            fall_s: if cut {
+                None
+            } else {
+                r.fall_samples.map(|v| v / self.fs_d)
+            },
+            level_power: r.level_power,
+            early_late_db: r.early_late_db,
+            frequency_hz: self.center_hz + settled,
+            chirp_hz: r.chirp.chirp_hz,
+            chirp_raw_hz: r.chirp.raw_hz,
+            chirp_noise_hz: r.chirp.noise_hz,
+            cut,
+            trace: r
+                .trace
+                .t
+                .iter()
+                .zip(&r.trace.f)
+                .map(|(t, f)| (*t as f32, (f - settled) as f32))
+                .collect(),
+        });
+    }
+
+    fn trim(&mut self) {
+        let keep_from = self
+            .seg
+            .open_start()
+            .unwrap_or(self.seg_q)
+            .min(self.seg_q)
+            .saturating_sub(self.pre);
+        while self.zbase < keep_from && self.zbuf.len() > self.win + 1 {
+            self.zbuf.pop_front();
+            self.zbase += 1;
+        }
+        while self.detbase < self.seg_q && !self.det.is_empty() {
+            self.det.pop_front();
+            self.detbase += 1;
+        }
+    }
+}

@@ -1,0 +1,15 @@
+//! Signal processing: streaming blocks from samples to per-element measures.
+//!
+//! survey → tone candidates (Welch spectrum per channel);
+//! downconvert → complex baseband at the pitch (overlap-save, analytic, decimated);
+//! levels → IEEE 181 state levels; segment → elements (hysteresis);
+//! edges, freq → rise/fall and chirp of one element.
+
+pub mod downconvert;
+pub mod edges;
+pub mod freq;
+pub mod levels;
+pub mod segment;
+pub mod stats;
+pub mod survey;
+pub mod window;
