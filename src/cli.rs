@@ -79,15 +79,22 @@ fn analyze(a: &AnalyzeArgs) -> Result<i32> {
         write_atomic(p, present::csv::elements_csv(&rep).as_bytes(), a.force)?;
     }
     if a.json {
-        println!("{}", present::json::to_json(&rep));
+        emit(&format!("{}\n", present::json::to_json(&rep)));
     } else {
-        print!("{}", present::text::render(&rep, a.elements));
+        emit(&present::text::render(&rep, a.elements));
     }
     if !rep.summary.keyed_signal_found {
         eprintln!("cwaudit: {}: no keyed tone was found", a.file.display());
         return Ok(2);
     }
     Ok(0)
+}
+
+/// Writes to stdout; a closed pipe (`cwaudit ... | head`) is not an error.
+pub fn emit(text: &str) {
+    use std::io::Write;
+    let mut out = std::io::stdout().lock();
+    let _ = out.write_all(text.as_bytes()).and_then(|_| out.flush());
 }
 
 /// Runs the command line; returns the process exit code.

@@ -5,6 +5,7 @@
 //! [`present`] (terminal, JSON, CSV). [`synth`] makes test signals with
 //! stated truth.
 
+pub mod accuracy;
 pub mod analysis;
 pub mod cli;
 pub mod demo;

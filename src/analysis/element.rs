@@ -3,7 +3,7 @@
 
 use rustfft::num_complex::Complex32;
 
-use crate::dsp::edges::measure_edge;
+use crate::dsp::edges::{measure_edge, EdgeSearch};
 use crate::dsp::freq::{chirp, trace, ChirpFit, Trace};
 use crate::dsp::levels::StateLevels;
 
@@ -46,15 +46,28 @@ pub fn measure(
         return None;
     }
     let coarse = COARSE_SIGMA_S * ctx.fs;
-    let rise = measure_edge(z, &ctx.levels, ctx.noise_power, up, lo, down, true, coarse);
+    let rise = measure_edge(
+        z,
+        &ctx.levels,
+        ctx.noise_power,
+        EdgeSearch {
+            near: up,
+            lo,
+            hi: down,
+            rising: true,
+        },
+        coarse,
+    );
     let fall = measure_edge(
         z,
         &ctx.levels,
         ctx.noise_power,
-        down,
-        up,
-        n - 1,
-        false,
+        EdgeSearch {
+            near: down,
+            lo: up,
+            hi: n - 1,
+            rising: false,
+        },
         coarse,
     );
     let t50r = rise.map(|r| r.0.t50).unwrap_or(up as f64);

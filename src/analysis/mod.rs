@@ -10,8 +10,6 @@ pub mod warnings;
 use std::path::Path;
 
 use crate::dsp::downconvert::{Band, Downconverter};
-use crate::dsp::edges::rise_edge;
-use crate::dsp::levels::StateLevels;
 use crate::dsp::stats::{median, spread};
 use crate::dsp::survey::{Candidate, Survey, SurveyResult};
 use crate::error::{CwError, Result};
@@ -74,29 +72,7 @@ fn choose(s: &SurveyResult, opt: &Options, path: &Path) -> Result<Option<Candida
 
 /// 10-90 % time of an ideal step through the envelope filter, s.
 pub fn rise_floor_s(fs: u32, center_hz: f64) -> f64 {
-    let mut dc = Downconverter::new(fs, Band::envelope(fs as f64, center_hz));
-    let n = (0.3 * fs as f64) as usize;
-    let x: Vec<f32> = (0..n)
-        .map(|i| {
-            if i >= n / 2 {
-                (2.0 * std::f64::consts::PI * center_hz * i as f64 / fs as f64).cos() as f32
-            } else {
-                0.0
-            }
-        })
-        .collect();
-    let mut z = Vec::new();
-    dc.push(&x, &mut z);
-    dc.flush(&mut z);
-    let env: Vec<f64> = z.iter().map(|v| v.norm() as f64).collect();
-    let lv = StateLevels {
-        low: 0.0,
-        high: 1.0,
-    };
-    let q = env.iter().position(|&v| v >= 0.5).unwrap_or(0);
-    rise_edge(&env, &lv, q, 0, env.len() - 1)
-        .map(|e| e.width() / dc.out_rate_hz())
-        .unwrap_or(0.0)
+    Downconverter::new(fs, Band::envelope(fs as f64, center_hz)).rise_floor_s()
 }
 
 /// Analyses one WAV file.
@@ -179,6 +155,37 @@ fn no_signal(input: InputInfo, s: &SurveyResult) -> Report {
     }
 }
 
+/// Chirp of the average key-down: the elements' deviation traces (each from
+/// its own settled frequency) averaged point by point from the 50 % rise, then
+/// fitted like one element's. Averaging N elements cuts the trace noise by
+/// sqrt(N), so a chirp too small to see in one element shows here. Dits are
+/// used when there are enough of them (they share one length), else all
+/// elements up to the shortest.
+pub fn ensemble_chirp(elements: &[Element]) -> Option<f64> {
+    use crate::dsp::freq::{chirp, Trace};
+    let dits: Vec<&Element> = elements
+        .iter()
+        .filter(|e| e.kind == report::Kind::Dit)
+        .collect();
+    let set: Vec<&Element> = if dits.len() >= 5 {
+        dits
+    } else {
+        elements.iter().collect()
+    };
+    let len = set.iter().map(|e| e.trace.len()).min()?;
+    if len < 8 || set.len() < 2 {
+        return None;
+    }
+    let mut tr = Trace::default();
+    for i in 0..len {
+        let sum: f64 = set.iter().map(|e| e.trace[i].1 as f64).sum();
+        tr.t.push(set[0].trace[i].0 as f64);
+        tr.f.push(sum / set.len() as f64);
+        tr.w.push(1.0);
+    }
+    Some(chirp(&tr).chirp_hz)
+}
+
 /// Turns a finished tracker into a report.
 pub fn build_report(input: InputInfo, tr: &ToneTracker, fs: u32) -> Report {
     let els = tr.elements();
@@ -227,6 +234,7 @@ pub fn build_report(input: InputInfo, tr: &ToneTracker, fs: u32) -> Report {
         _ => None,
     };
     let freqs = col(&|e| Some(e.frequency_hz));
+    let ensemble = ensemble_chirp(&elements);
     let summary = Summary {
         keyed_signal_found: !elements.is_empty(),
         tone_hz: (!freqs.is_empty()).then(|| median(&freqs)),
@@ -241,6 +249,7 @@ pub fn build_report(input: InputInfo, tr: &ToneTracker, fs: u32) -> Report {
         fall_ms: spread(&col(&|e| e.fall_ms)),
         chirp_hz: spread(&col(&|e| Some(e.chirp_hz))),
         chirp_raw_hz: spread(&col(&|e| Some(e.chirp_raw_hz))),
+        chirp_mean_element_hz: ensemble,
         element_count: elements.len(),
         dit_count: elements
             .iter()

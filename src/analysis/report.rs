@@ -92,6 +92,9 @@ pub struct Summary {
     pub fall_ms: Option<Spread>,
     pub chirp_hz: Option<Spread>,
     pub chirp_raw_hz: Option<Spread>,
+    /// Chirp of the average key-down (traces of all dits averaged, then
+    /// fitted): far less noisy than any one element's figure, Hz.
+    pub chirp_mean_element_hz: Option<f64>,
     pub element_count: usize,
     pub dit_count: usize,
     pub dah_count: usize,

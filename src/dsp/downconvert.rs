@@ -230,6 +230,47 @@ impl Downconverter {
         self.hop + self.m
     }
 
+    /// 10-90 % time of the band's step response for keying, s. An on-off
+    /// keyed carrier has a real envelope whose spectrum is symmetric about
+    /// the pitch, so what shapes it is the band averaged with its mirror image,
+    /// (H(f) + H*(-f)) / 2: the fastest edge this band can show.
+    pub fn rise_floor_s(&self) -> f64 {
+        let nd = self.nd;
+        let mut g: Vec<Complex32> = (0..nd)
+            .map(|j| (self.h[j] + self.h[(nd - j) % nd].conj()) * 0.5)
+            .collect();
+        FftPlanner::<f32>::new()
+            .plan_fft_inverse(nd)
+            .process(&mut g);
+        // Circular impulse response; rotate so its centre (the delay) is mid-buffer.
+        let delay = ((self.m - 1) / 2 / self.d) as i64;
+        let half = (nd / 2) as i64;
+        let h: Vec<Complex64> = (0..nd as i64)
+            .map(|i| {
+                let v = g[(i + delay - half).rem_euclid(nd as i64) as usize];
+                Complex64::new(v.re as f64, v.im as f64)
+            })
+            .collect();
+        let mut acc = Complex64::new(0.0, 0.0);
+        let step: Vec<f64> = h
+            .iter()
+            .map(|v| {
+                acc += v;
+                acc.norm()
+            })
+            .collect();
+        let top = acc.norm();
+        let cross = |p: f64| {
+            (1..step.len())
+                .find(|&i| step[i] >= p * top)
+                .map(|i| i as f64 - 1.0 + (p * top - step[i - 1]) / (step[i] - step[i - 1]))
+        };
+        match (cross(0.1), cross(0.9)) {
+            (Some(a), Some(b)) => (b - a) / self.out_rate_hz(),
+            _ => 0.0,
+        }
+    }
+
     /// Filters one channel's samples; appends decimated baseband to `out`.
     /// The baseband is scaled so a sine of amplitude A gives |z| = A.
     pub fn push(&mut self, samples: &[f32], out: &mut Vec<Complex32>) {

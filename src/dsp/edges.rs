@@ -101,6 +101,83 @@ pub fn falling_before(env: &[f64], from: usize, level: f64, stop: usize) -> Opti
     None
 }
 
+/// Crossing instant of `level` by occupancy: within `a..b`, the time the
+/// (piecewise-linear) envelope spends on the "before" side of the level
+/// (below it for a rising edge), added to `a`. For a clean monotone edge this
+/// is exactly the interpolated crossing; with noise, repeated crossings
+/// average out instead of the nearest one being picked, which would bias the
+/// edge short.
+///
+/// Where noise also flips samples far from the crossing (key-up noise above
+/// a 10 % level at low SNR), `p_before` and `p_after` are the measured rates of
+/// wrong-side samples before and after the crossing; with T the occupancy,
+/// T = (t - a)(1 - p_b) + p_a (b - t) is solved for t.
+pub fn occupancy_crossing(
+    env: &[f64],
+    level: f64,
+    w: (f64, f64),
+    rising: bool,
+    p: (f64, f64),
+) -> f64 {
+    let (a, b) = w;
+    let n = env.len();
+    if n < 2 || b <= a {
+        return a;
+    }
+    let a = a.max(0.0);
+    let b = b.min((n - 1) as f64);
+    let before = |v: f64| if rising { v < level } else { v >= level };
+    let mut occ = 0.0;
+    let mut i = a.floor() as usize;
+    while (i as f64) < b && i + 1 < n {
+        let s0 = (i as f64).max(a);
+        let s1 = ((i + 1) as f64).min(b);
+        if s1 > s0 {
+            let v = |x: f64| env[i] + (env[i + 1] - env[i]) * (x - i as f64);
+            let (v0, v1) = (v(s0), v(s1));
+            occ += match (before(v0), before(v1)) {
+                (true, true) => s1 - s0,
+                (false, false) => 0.0,
+                (b0, _) => {
+                    let x = s0 + (level - v0) / (v1 - v0) * (s1 - s0);
+                    if b0 {
+                        x - s0
+                    } else {
+                        s1 - x
+                    }
+                }
+            };
+        }
+        i += 1;
+    }
+    let (pb, pa) = (p.0.clamp(0.0, 0.4), p.1.clamp(0.0, 0.4));
+    ((occ + a * (1.0 - pb) - pa * b) / (1.0 - pa - pb)).clamp(a, b)
+}
+
+/// Share of samples in `lo..hi` on the wrong side of `level`: below it when
+/// `want_above`, else at or above it. 0 when the region is too short to say.
+fn wrong_side_rate(env: &[f64], level: f64, lo: f64, hi: f64, want_above: bool) -> f64 {
+    let a = lo.max(0.0).ceil() as usize;
+    let b = (hi.floor() as usize).min(env.len());
+    if b < a + 10 {
+        return 0.0;
+    }
+    let wrong = env[a..b]
+        .iter()
+        .filter(|&&v| if want_above { v < level } else { v >= level })
+        .count();
+    wrong as f64 / (b - a) as f64
+}
+
+/// Length of the reference stretch for wrong-side rates, in edge widths.
+const REFERENCE_WIDTHS: f64 = 1.0;
+
+/// How far past the nearest crossing the occupancy window reaches, as a
+/// multiple of that crossing's distance from the 50 % point. The nearest
+/// crossing is itself pulled towards the 50 % point by noise, so the window
+/// must reach well beyond it to contain the true crossing.
+pub const OCCUPANCY_REACH: f64 = 2.0;
+
 /// Crossing instants of one edge, fractional sample indices.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct Edge {
@@ -123,65 +200,115 @@ pub fn rise_edge(env: &[f64], lv: &StateLevels, near: usize, lo: usize, hi: usiz
     let i50 = t50.floor() as usize;
     let t10 = rising_before(env, i50, lv.at(0.1), lo)?;
     let t90 = rising_after(env, i50, lv.at(0.9), hi)?;
+    let (l10, l90) = (lv.at(0.1), lv.at(0.9));
+    let w10 = ((t10 - OCCUPANCY_REACH * (t50 - t10)).max(lo as f64), t50);
+    let w90 = (t50, (t90 + OCCUPANCY_REACH * (t90 - t50)).min(hi as f64));
+    let r = REFERENCE_WIDTHS * (t90 - t10).max(4.0);
+    let p10 = wrong_side_rate(env, l10, (w10.0 - r).max(lo as f64), w10.0, false);
+    let p90 = wrong_side_rate(env, l90, w90.1, (w90.1 + r).min(hi as f64), true);
+    let t10 = occupancy_crossing(env, l10, w10, true, (p10, 0.0));
+    let t90 = occupancy_crossing(env, l90, w90, true, (0.0, p90));
     Some(Edge { t10, t50, t90 })
 }
 
 /// Finds a falling edge around comparator index `near` within `lo..hi`.
 pub fn fall_edge(env: &[f64], lv: &StateLevels, near: usize, lo: usize, hi: usize) -> Option<Edge> {
-    let back = near.saturating_sub(1).max(lo);
-    let t50 = falling_before(env, near, lv.at(0.5), back.saturating_sub(0).min(near))
-        .filter(|t| *t >= lo as f64)
-        .or_else(|| falling_after(env, lo, lv.at(0.5), hi))?;
+    // The last time the envelope went below 50 % before the comparator
+    // switched off; failing that, the first time after.
+    let t50 = falling_before(env, near, lv.at(0.5), lo)
+        .or_else(|| falling_after(env, near, lv.at(0.5), hi))?;
     let i50 = t50.floor() as usize;
     let t90 = falling_before(env, i50, lv.at(0.9), lo)?;
     let t10 = falling_after(env, i50, lv.at(0.1), hi)?;
+    let (l10, l90) = (lv.at(0.1), lv.at(0.9));
+    let w90 = ((t90 - OCCUPANCY_REACH * (t50 - t90)).max(lo as f64), t50);
+    let w10 = (t50, (t10 + OCCUPANCY_REACH * (t10 - t50)).min(hi as f64));
+    let r = REFERENCE_WIDTHS * (t10 - t90).max(4.0);
+    let p90 = wrong_side_rate(env, l90, (w90.0 - r).max(lo as f64), w90.0, true);
+    let p10 = wrong_side_rate(env, l10, w10.1, (w10.1 + r).min(hi as f64), false);
+    let t90 = occupancy_crossing(env, l90, w90, false, (p90, 0.0));
+    let t10 = occupancy_crossing(env, l10, w10, false, (0.0, p10));
     Some(Edge { t10, t50, t90 })
 }
 
-/// Coarse-then-fine measurement of one edge: returns the edge on the final
-/// envelope and the 10-90 % time in samples with the smoothing removed.
-#[allow(clippy::too_many_arguments)]
+/// Where to look for one edge (indices into the element's samples).
+#[derive(Clone, Copy, Debug)]
+pub struct EdgeSearch {
+    /// Comparator switching index near the edge.
+    pub near: usize,
+    pub lo: usize,
+    pub hi: usize,
+    pub rising: bool,
+}
+
+/// Crossing-time jitter allowed from noise, as a share of the edge time.
+pub const JITTER_SHARE: f64 = 0.02;
+/// The smoothing's own 10-90 % time never exceeds this share of the edge's.
+pub const MAX_SMOOTH_SHARE: f64 = 0.2;
+
+/// Coarse-then-fine measurement of one edge. The fine envelope is smoothed
+/// only as much as the noise requires: enough that noise moves a crossing by
+/// at most `JITTER_SHARE` of the edge time (slope taken as 80 % per edge
+/// time), and never more than `MAX_SMOOTH_SHARE` of it. A Gaussian that
+/// narrow shifts crossings by about half its share squared (under 2 %), so no
+/// correction is applied: any correction would be exact for one edge shape
+/// only. Returns the edge and its 10-90 % width in samples.
 pub fn measure_edge(
     z: &[Complex32],
     lv: &StateLevels,
     noise_power: f64,
-    near: usize,
-    lo: usize,
-    hi: usize,
-    rising: bool,
+    at: EdgeSearch,
     coarse_sigma: f64,
 ) -> Option<(Edge, f64)> {
     let find = |env: &[f64]| {
-        if rising {
-            rise_edge(env, lv, near, lo, hi)
+        if at.rising {
+            rise_edge(env, lv, at.near, at.lo, at.hi)
         } else {
-            fall_edge(env, lv, near, lo, hi)
+            fall_edge(env, lv, at.near, at.lo, at.hi)
         }
     };
-    // Work on a window around the edge only.
     let k0 = gaussian_kernel(coarse_sigma);
-    let env0 = envelope(z, &k0, noise_power);
-    let coarse = find(&env0)?;
-    let w0 = coarse.width();
+    let coarse = find(&envelope(z, &k0, noise_power))?;
+
     let s0 = if k0.len() > 1 { coarse_sigma } else { 0.0 };
-    let w_est = (w0 * w0 - (GAUSS_10_90_PER_SIGMA * s0).powi(2))
+    let w_est = (coarse.width().powi(2) - (GAUSS_10_90_PER_SIGMA * s0).powi(2))
         .max(0.0)
         .sqrt();
-    let sigma = w_est / (5.0 * GAUSS_10_90_PER_SIGMA);
+    // Noise per quadrature component relative to the high level.
+    let rel = if lv.high > 0.0 {
+        (noise_power / 2.0).sqrt() / lv.high
+    } else {
+        0.0
+    };
+    // Slope at the flatter of the 10 % and 90 % crossings, in high-levels
+    // per edge time (0.8 for a straight ramp; an RC tail is far flatter).
+    let env0 = envelope(z, &k0, noise_power);
+    let d = (0.25 * w_est).max(1.0);
+    let slope_at = |t: f64| {
+        let i0 = (t - d).max(0.0) as usize;
+        let i1 = ((t + d) as usize).min(env0.len() - 1);
+        (env0[i1] - env0[i0]).abs() / ((i1 - i0).max(1) as f64) * w_est.max(1.0)
+            / lv.high.max(1e-12)
+    };
+    let slope = slope_at(coarse.t10)
+        .min(slope_at(coarse.t90))
+        .clamp(0.05, 0.8);
+    // Gaussian noise gain sum(w^2) = 1 / (2 sqrt(pi) sigma); jitter = rel * sqrt(g) * W / slope.
+    let g_needed = (slope * JITTER_SHARE / rel.max(1e-12)).powi(2);
+    let sigma_noise = 1.0 / (2.0 * std::f64::consts::PI.sqrt() * g_needed.min(1.0));
+    let sigma_cap = MAX_SMOOTH_SHARE * w_est / GAUSS_10_90_PER_SIGMA;
+    let sigma = if g_needed >= 1.0 {
+        0.0
+    } else {
+        sigma_noise.min(sigma_cap)
+    };
     let k1 = gaussian_kernel(sigma);
-    let s1 = if k1.len() > 1 { sigma } else { 0.0 };
     let edge = if k1.len() == k0.len() {
         coarse
     } else {
-        let env1 = envelope(z, &k1, noise_power);
-        find(&env1).unwrap_or(coarse)
+        find(&envelope(z, &k1, noise_power)).unwrap_or(coarse)
     };
-    let s_used = if k1.len() == k0.len() { s0 } else { s1 };
-    let w = edge.width();
-    let corr = (w * w - (GAUSS_10_90_PER_SIGMA * s_used).powi(2))
-        .max(0.0)
-        .sqrt();
-    Some((edge, corr))
+    Some((edge, edge.width()))
 }
 
 #[cfg(test)]
@@ -220,9 +347,10 @@ mod tests {
     }
 
     #[test]
-    fn gaussian_smoothing_is_removed_in_quadrature() {
-        // A Gaussian-filtered step has 10-90 % = 2.563 sigma (BRIEF.md); a
-        // second Gaussian adds in quadrature, which the measurement removes.
+    fn clean_gaussian_edge_is_measured_unsmoothed() {
+        // A Gaussian-filtered step has 10-90 % = 2.563 sigma (BRIEF.md). With
+        // no noise the fine envelope is not smoothed, so the coarse
+        // smoothing must leave no trace.
         let sigma = 20.0;
         let n = 2000;
         let z: Vec<Complex32> = (0..n)
@@ -235,7 +363,13 @@ mod tests {
             low: 0.0,
             high: 1.0,
         };
-        let (e, w) = measure_edge(&z, &lv, 0.0, 1000, 0, n - 1, true, 2.0).unwrap();
+        let at = EdgeSearch {
+            near: 1000,
+            lo: 0,
+            hi: n - 1,
+            rising: true,
+        };
+        let (e, w) = measure_edge(&z, &lv, 0.0, at, 2.0).unwrap();
         assert!((e.t50 - 1000.0).abs() < 0.6, "{e:?}");
         assert!((w - 2.563 * sigma).abs() < 0.01 * 2.563 * sigma, "{w}");
     }

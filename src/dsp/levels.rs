@@ -87,7 +87,8 @@ impl LevelHistogram {
     }
 
     /// Mode of bins `lo..hi` (smoothed over +-0.5 dB), and the mean amplitude
-    /// of the samples within +-0.5 dB of it.
+    /// of the samples within +-0.1 dB of it (narrow, so a slow approach to
+    /// the plateau, as of an RC edge, does not pull the level down).
     fn mode_level(&self, lo: usize, hi: usize) -> Option<f64> {
         if hi <= lo {
             return None;
@@ -117,7 +118,22 @@ impl LevelHistogram {
         if best.0 == 0 {
             return None;
         }
-        let (a, b) = (w_lo(best.1), w_hi(best.1));
+        // The wide window finds the region; within it, the peak of a +-0.1 dB
+        // window is the mode (a pile-up beside a flat plateau, as an RC edge
+        // makes, would otherwise drag the wide window off the plateau).
+        let near = (0.1 / BIN_DB) as usize;
+        let win = |c: usize| (c.saturating_sub(near).max(lo), (c + near + 1).min(hi));
+        let win_sum = |c: usize| -> u64 {
+            let (a, b) = win(c);
+            self.counts[a..b].iter().sum()
+        };
+        let mut peak = best.1;
+        for c in w_lo(best.1)..w_hi(best.1) {
+            if win_sum(c) > win_sum(peak) {
+                peak = c;
+            }
+        }
+        let (a, b) = win(peak);
         let n: u64 = self.counts[a..b].iter().sum();
         let s: f64 = self.sums[a..b].iter().sum();
         Some(if n > 0 {

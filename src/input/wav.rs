@@ -111,12 +111,11 @@ impl WavSource {
         &self.path
     }
 
-    fn truncated(&self) -> CwError {
+    fn truncated(&self, promised: u64) -> CwError {
         CwError::input(
             &self.path,
             format!(
-                "is truncated: its header promises {} frames but the data ends after {}",
-                self.frames_read + self.frames_left,
+                "is truncated: its header promises {promised} frames but the data ends after {}",
                 self.frames_read
             ),
         )
@@ -276,9 +275,10 @@ impl FrameSource for WavSource {
         if out.len() < n {
             // Keep whole frames only; report the truncation.
             out.truncate(out.len() - out.len() % ch);
+            let promised = self.frames_read + self.frames_left;
             self.frames_read += (out.len() / ch) as u64;
             self.frames_left = 0;
-            return Err(self.truncated());
+            return Err(self.truncated(promised));
         }
         if let Some(pos) = out.iter().position(|v| !v.is_finite()) {
             return Err(self.non_finite(self.frames_read + (pos / ch) as u64));

@@ -1,0 +1,100 @@
+//! Measured-against-truth comparison for synthetic recordings, shared by the
+//! accuracy benchmark (`cargo bench --bench accuracy`) and the grid tests.
+
+use std::path::Path;
+
+use crate::analysis::report::Report;
+use crate::analysis::{analyze_file, Options};
+use crate::dsp::stats::median;
+use crate::error::Result;
+use crate::synth::{write_files, SynthSpec, Truth};
+
+/// One synthesized case, analysed, with its elements paired to the truth.
+#[derive(Clone, Debug)]
+pub struct Case {
+    pub truth: Truth,
+    pub report: Report,
+    /// (truth index, report index) of elements whose 50 % starts are within 20 ms.
+    pub pairs: Vec<(usize, usize)>,
+}
+
+impl Case {
+    /// Elements the analysis found that match no truth element.
+    pub fn false_elements(&self) -> usize {
+        self.report.elements.len() - self.pairs.len()
+    }
+    /// Truth elements the analysis missed.
+    pub fn missed_elements(&self) -> usize {
+        self.truth.elements.len() - self.pairs.len()
+    }
+    fn paired(&self, f: impl Fn(usize, usize) -> Option<f64>) -> Vec<f64> {
+        self.pairs.iter().filter_map(|&(t, r)| f(t, r)).collect()
+    }
+    /// Median of measured rise times, ms.
+    pub fn rise_median_ms(&self) -> f64 {
+        median(&self.paired(|_, r| self.report.elements[r].rise_ms))
+    }
+    pub fn fall_median_ms(&self) -> f64 {
+        median(&self.paired(|_, r| self.report.elements[r].fall_ms))
+    }
+    /// Median over elements of the true chirp, Hz.
+    pub fn chirp_truth_hz(&self) -> f64 {
+        median(&self.paired(|t, _| Some(self.truth.elements[t].chirp_hz)))
+    }
+    pub fn chirp_median_hz(&self) -> f64 {
+        median(&self.paired(|_, r| Some(self.report.elements[r].chirp_hz)))
+    }
+    /// Per-element chirp errors, Hz.
+    pub fn chirp_errors_hz(&self) -> Vec<f64> {
+        self.paired(|t, r| Some(self.report.elements[r].chirp_hz - self.truth.elements[t].chirp_hz))
+    }
+    /// Per-element duration errors, ms.
+    pub fn duration_errors_ms(&self) -> Vec<f64> {
+        self.paired(|t, r| {
+            Some(1e3 * (self.report.elements[r].duration_s - self.truth.elements[t].duration_s))
+        })
+    }
+    /// Settled frequencies of the elements, Hz.
+    pub fn settled_hz(&self) -> Vec<f64> {
+        self.paired(|_, r| Some(self.report.elements[r].frequency_hz))
+    }
+}
+
+/// Pairs elements by nearest 50 % start within 20 ms.
+fn pair(truth: &Truth, rep: &Report) -> Vec<(usize, usize)> {
+    let mut out = Vec::new();
+    let mut j = 0;
+    for (i, t) in truth.elements.iter().enumerate() {
+        while j < rep.elements.len() && rep.elements[j].start_s < t.start_s - 0.02 {
+            j += 1;
+        }
+        if j < rep.elements.len() && (rep.elements[j].start_s - t.start_s).abs() <= 0.02 {
+            out.push((i, j));
+            j += 1;
+        }
+    }
+    out
+}
+
+/// Synthesizes `spec` into `dir`, analyses it and pairs the elements.
+pub fn run_case(spec: &SynthSpec, dir: &Path, name: &str, opt: &Options) -> Result<Case> {
+    let path = dir.join(format!("{name}.wav"));
+    let truth = write_files(spec, &path, true)?;
+    let report = analyze_file(&path, opt)?;
+    let _ = std::fs::remove_file(&path);
+    let _ = std::fs::remove_file(path.with_extension("json"));
+    let pairs = pair(&truth, &report);
+    Ok(Case {
+        truth,
+        report,
+        pairs,
+    })
+}
+
+/// Cramér–Rao bound on the standard deviation of a frequency estimate from
+/// N samples of a real tone (Rife & Boorstyn 1974):
+/// var >= 12 fs^2 / ((2 pi)^2 SNR N (N^2 - 1)), SNR = A^2 / (2 sigma^2).
+pub fn crb_freq_std_hz(fs: f64, snr_per_sample: f64, n: f64) -> f64 {
+    (12.0 * fs * fs / ((2.0 * std::f64::consts::PI).powi(2) * snr_per_sample * n * (n * n - 1.0)))
+        .sqrt()
+}
