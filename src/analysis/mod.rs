@@ -186,6 +186,36 @@ pub fn ensemble_chirp(elements: &[Element]) -> Option<f64> {
     Some(chirp(&tr).chirp_hz)
 }
 
+/// 10-90 % times of the averaged rising and falling edges, ms.
+pub fn mean_edges_ms(tr: &ToneTracker) -> (Option<f64>, Option<f64>) {
+    use crate::dsp::edges::{fall_edge, rise_edge};
+    use crate::dsp::levels::StateLevels;
+    let (Some(lv), pn) = (tr.levels(), tr.noise_power().unwrap_or(0.0)) else {
+        return (None, None);
+    };
+    let w = (crate::analysis::tracker::DETECT_WINDOW_S * tr.baseband_rate_hz())
+        .round()
+        .max(1.0);
+    let high = (lv.high * lv.high - pn / w).max(0.0).sqrt();
+    let levels = StateLevels { low: 0.0, high };
+    let (r, f) = tr.mean_edges();
+    let ms = |v: f64| v / tr.baseband_rate_hz() * 1e3;
+    let one = |a: &tracker::EdgeAverage, rising: bool| -> Option<f64> {
+        if a.count[a.half] < 2 {
+            return None;
+        }
+        let env = a.envelope(pn);
+        let n = env.len() - 1;
+        let e = if rising {
+            rise_edge(&env, &levels, a.half, 0, n)
+        } else {
+            fall_edge(&env, &levels, a.half, 0, n)
+        };
+        e.map(|e| ms(e.width()))
+    };
+    (one(r, true), one(f, false))
+}
+
 /// Turns a finished tracker into a report.
 pub fn build_report(input: InputInfo, tr: &ToneTracker, fs: u32) -> Report {
     let els = tr.elements();
@@ -235,6 +265,7 @@ pub fn build_report(input: InputInfo, tr: &ToneTracker, fs: u32) -> Report {
     };
     let freqs = col(&|e| Some(e.frequency_hz));
     let ensemble = ensemble_chirp(&elements);
+    let (mean_rise_ms, mean_fall_ms) = mean_edges_ms(tr);
     let summary = Summary {
         keyed_signal_found: !elements.is_empty(),
         tone_hz: (!freqs.is_empty()).then(|| median(&freqs)),
@@ -250,6 +281,8 @@ pub fn build_report(input: InputInfo, tr: &ToneTracker, fs: u32) -> Report {
         chirp_hz: spread(&col(&|e| Some(e.chirp_hz))),
         chirp_raw_hz: spread(&col(&|e| Some(e.chirp_raw_hz))),
         chirp_mean_element_hz: ensemble,
+        rise_mean_edge_ms: mean_rise_ms,
+        fall_mean_edge_ms: mean_fall_ms,
         element_count: elements.len(),
         dit_count: elements
             .iter()

@@ -94,6 +94,57 @@ impl NoiseAcc {
     }
 }
 
+/// Half-width of the averaged edge window, s (holds edges up to ~15 ms).
+pub const MEAN_EDGE_HALF_S: f64 = 0.025;
+
+/// Running sum of edge power envelopes aligned at their 50 % instants, for
+/// the mean edge: N edges averaged cut the noise power by N, so the mean
+/// edge's 10-90 % time holds at SNRs where single edges scatter widely.
+/// Fixed size: memory does not grow with the recording.
+#[derive(Clone, Debug)]
+pub struct EdgeAverage {
+    pub half: usize,
+    pub sum: Vec<f64>,
+    pub count: Vec<u32>,
+}
+
+impl EdgeAverage {
+    fn new(half: usize) -> EdgeAverage {
+        EdgeAverage {
+            half,
+            sum: vec![0.0; 2 * half + 1],
+            count: vec![0; 2 * half + 1],
+        }
+    }
+    /// Adds |z|^2 around fractional index `t50` (linear interpolation).
+    fn add(&mut self, z: &[Complex32], t50: f64) {
+        for (k, (s, c)) in self.sum.iter_mut().zip(self.count.iter_mut()).enumerate() {
+            let x = t50 + k as f64 - self.half as f64;
+            if x < 0.0 || x + 1.0 >= z.len() as f64 {
+                continue;
+            }
+            let i = x.floor() as usize;
+            let f = x - i as f64;
+            *s += (1.0 - f) * z[i].norm_sqr() as f64 + f * z[i + 1].norm_sqr() as f64;
+            *c += 1;
+        }
+    }
+    /// Mean envelope with the noise power removed.
+    pub fn envelope(&self, noise_power: f64) -> Vec<f64> {
+        self.sum
+            .iter()
+            .zip(&self.count)
+            .map(|(s, &c)| {
+                if c == 0 {
+                    0.0
+                } else {
+                    (s / c as f64 - noise_power).max(0.0).sqrt()
+                }
+            })
+            .collect()
+    }
+}
+
 /// Streaming tracker of one tone in one channel.
 pub struct ToneTracker {
     dc: Downconverter,
@@ -122,6 +173,8 @@ pub struct ToneTracker {
     elements: Vec<TrackedElement>,
     unmeasured: usize,
     cut_open: bool,
+    mean_rise: EdgeAverage,
+    mean_fall: EdgeAverage,
 }
 
 impl ToneTracker {
@@ -158,6 +211,8 @@ impl ToneTracker {
             elements: Vec::new(),
             unmeasured: 0,
             cut_open: false,
+            mean_rise: EdgeAverage::new(s(MEAN_EDGE_HALF_S) as usize),
+            mean_fall: EdgeAverage::new(s(MEAN_EDGE_HALF_S) as usize),
             fs_d,
             dc,
         }
@@ -182,6 +237,14 @@ impl ToneTracker {
     }
     pub fn elements(&self) -> &[TrackedElement] {
         &self.elements
+    }
+    /// Averaged rising and falling edges.
+    pub fn mean_edges(&self) -> (&EdgeAverage, &EdgeAverage) {
+        (&self.mean_rise, &self.mean_fall)
+    }
+    /// Sample rate of the baseband, Hz.
+    pub fn baseband_rate_hz(&self) -> f64 {
+        self.fs_d
     }
     /// Elements found by the comparator whose edges could not be measured.
     pub fn unmeasured(&self) -> usize {
@@ -336,6 +399,12 @@ impl ToneTracker {
             self.unmeasured += 1;
             return;
         };
+        if r.rise_samples.is_some() && !self.cut_open {
+            self.mean_rise.add(&z, r.t50_rise);
+        }
+        if r.fall_samples.is_some() && !cut {
+            self.mean_fall.add(&z, r.t50_fall);
+        }
         let t0 = self.dc.time_of(a);
         let ts = |i: f64| t0 + i / self.fs_d;
         let settled = r.chirp.settled_hz;

@@ -208,6 +208,8 @@ pub fn rise_edge(env: &[f64], lv: &StateLevels, near: usize, lo: usize, hi: usiz
     let p90 = wrong_side_rate(env, l90, w90.1, (w90.1 + r).min(hi as f64), true);
     let t10 = occupancy_crossing(env, l10, w10, true, (p10, 0.0));
     let t90 = occupancy_crossing(env, l90, w90, true, (0.0, p90));
+    // The 50 % instant by occupancy between the 10 % and 90 % instants.
+    let t50 = occupancy_crossing(env, lv.at(0.5), (t10, t90), true, (0.0, 0.0));
     Some(Edge { t10, t50, t90 })
 }
 
@@ -228,6 +230,7 @@ pub fn fall_edge(env: &[f64], lv: &StateLevels, near: usize, lo: usize, hi: usiz
     let p10 = wrong_side_rate(env, l10, w10.1, (w10.1 + r).min(hi as f64), false);
     let t90 = occupancy_crossing(env, l90, w90, false, (p90, 0.0));
     let t10 = occupancy_crossing(env, l10, w10, false, (0.0, p10));
+    let t50 = occupancy_crossing(env, lv.at(0.5), (t90, t10), false, (0.0, 0.0));
     Some(Edge { t10, t50, t90 })
 }
 
@@ -242,7 +245,7 @@ pub struct EdgeSearch {
 }
 
 /// Crossing-time jitter allowed from noise, as a share of the edge time.
-pub const JITTER_SHARE: f64 = 0.02;
+pub const JITTER_SHARE: f64 = 0.01;
 /// The smoothing's own 10-90 % time never exceeds this share of the edge's.
 pub const MAX_SMOOTH_SHARE: f64 = 0.2;
 
