@@ -4,23 +4,12 @@
 //!
 //! Run: cargo bench --bench accuracy
 
-use cwaudit::accuracy::{crb_freq_std_hz, run_case, Case};
+use cwaudit::accuracy::{crb_freq_std_hz, grid_base, run_case, Case, FORMAT_GRID};
 use cwaudit::analysis::Options;
-use cwaudit::synth::{Chirp, EdgeShape, SampleFormat, SynthSpec};
+use cwaudit::synth::{Chirp, EdgeShape, SynthSpec};
 
 fn base() -> SynthSpec {
-    SynthSpec {
-        text: "PARIS PARIS PARIS".into(),
-        wpm: 20.0,
-        pitch_hz: 1000.0,
-        sample_rate_hz: 48_000,
-        rise_ms: 5.0,
-        fall_ms: 5.0,
-        snr_db: Some(30.0),
-        level_dbfs: -12.0,
-        seed: 7,
-        ..Default::default()
-    }
+    grid_base(7)
 }
 
 /// Tolerance on rise/fall from the issue: max(3 %, 0.1 ms) at or above 1 ms,
@@ -177,15 +166,7 @@ fn main() {
     // Sample rates and formats.
     let mut rows = Vec::new();
     if want("formats") {
-        for (rate, fmt, ch, sig) in [
-            (8_000, SampleFormat::S16, 1, 1),
-            (44_100, SampleFormat::S16, 1, 1),
-            (48_000, SampleFormat::S24, 1, 1),
-            (48_000, SampleFormat::F32, 1, 1),
-            (96_000, SampleFormat::S16, 1, 1),
-            (48_000, SampleFormat::S16, 2, 1),
-            (48_000, SampleFormat::S16, 2, 2),
-        ] {
+        for (rate, fmt, ch, sig) in FORMAT_GRID {
             for t in [0.5, 5.0] {
                 let s = SynthSpec {
                     sample_rate_hz: rate,

@@ -7,7 +7,7 @@ use crate::analysis::report::Report;
 use crate::analysis::{analyze_file, Options};
 use crate::dsp::stats::median;
 use crate::error::Result;
-use crate::synth::{write_files, SynthSpec, Truth};
+use crate::synth::{write_files, SampleFormat, SynthSpec, Truth};
 
 /// One synthesized case, analysed, with its elements paired to the truth.
 #[derive(Clone, Debug)]
@@ -98,3 +98,36 @@ pub fn crb_freq_std_hz(fs: f64, snr_per_sample: f64, n: f64) -> f64 {
     (12.0 * fs * fs / ((2.0 * std::f64::consts::PI).powi(2) * snr_per_sample * n * (n * n - 1.0)))
         .sqrt()
 }
+
+/// The base case of the accuracy grid: "PARIS PARIS PARIS" (42 elements) at
+/// 20 WPM, 1000 Hz, 48 kHz 16-bit, -12 dBFS, 5 ms raised-cosine edges, SNR
+/// 30 dB in 2.5 kHz.
+pub fn grid_base(seed: u64) -> SynthSpec {
+    SynthSpec {
+        text: "PARIS PARIS PARIS".into(),
+        wpm: 20.0,
+        pitch_hz: 1000.0,
+        sample_rate_hz: 48_000,
+        rise_ms: 5.0,
+        fall_ms: 5.0,
+        snr_db: Some(30.0),
+        level_dbfs: -12.0,
+        seed,
+        ..Default::default()
+    }
+}
+
+/// Rates, sample formats and channel layouts of the grid: (rate, format,
+/// channels, 1-based channel carrying the signal).
+pub const FORMAT_GRID: [(u32, SampleFormat, u16, u16); 10] = [
+    (8_000, SampleFormat::S16, 1, 1),
+    (44_100, SampleFormat::S16, 1, 1),
+    (48_000, SampleFormat::S24, 1, 1),
+    (48_000, SampleFormat::F32, 1, 1),
+    (48_000, SampleFormat::F64, 1, 1),
+    (48_000, SampleFormat::S32, 1, 1),
+    (48_000, SampleFormat::U8, 1, 1),
+    (96_000, SampleFormat::S16, 1, 1),
+    (48_000, SampleFormat::S16, 2, 1),
+    (48_000, SampleFormat::S16, 2, 2),
+];

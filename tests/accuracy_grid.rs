@@ -11,23 +11,12 @@
 //! Where the engine does not meet a target yet, the test says so and guards
 //! the figure it does reach (README, Accuracy).
 
-use cwaudit::accuracy::{run_case, Case};
+use cwaudit::accuracy::{grid_base, run_case, Case, FORMAT_GRID};
 use cwaudit::analysis::Options;
-use cwaudit::synth::{Chirp, EdgeShape, SampleFormat, SynthSpec};
+use cwaudit::synth::{Chirp, EdgeShape, SynthSpec};
 
 fn base(seed: u64) -> SynthSpec {
-    SynthSpec {
-        text: "PARIS PARIS PARIS".into(),
-        wpm: 20.0,
-        pitch_hz: 1000.0,
-        sample_rate_hz: 48_000,
-        rise_ms: 5.0,
-        fall_ms: 5.0,
-        snr_db: Some(30.0),
-        level_dbfs: -12.0,
-        seed,
-        ..Default::default()
-    }
+    grid_base(seed)
 }
 
 fn run(spec: &SynthSpec) -> Case {
@@ -132,18 +121,7 @@ fn snr_from_fourteen_to_forty_db() {
 #[test]
 fn sample_rates_bit_depths_and_either_stereo_channel() {
     let mut seed = 40;
-    for (rate, fmt, ch, sig) in [
-        (8_000, SampleFormat::S16, 1, 1),
-        (44_100, SampleFormat::S16, 1, 1),
-        (48_000, SampleFormat::S24, 1, 1),
-        (48_000, SampleFormat::F32, 1, 1),
-        (48_000, SampleFormat::F64, 1, 1),
-        (48_000, SampleFormat::S32, 1, 1),
-        (48_000, SampleFormat::U8, 1, 1),
-        (96_000, SampleFormat::S16, 1, 1),
-        (48_000, SampleFormat::S16, 2, 1),
-        (48_000, SampleFormat::S16, 2, 2),
-    ] {
+    for (rate, fmt, ch, sig) in FORMAT_GRID {
         for t in [0.5, 5.0] {
             seed += 1;
             let c = run(&SynthSpec {
