@@ -9,6 +9,9 @@ use crate::dsp::levels::StateLevels;
 
 /// Coarse smoothing for the first edge estimate, s (a ~0.6 kHz noise band).
 const COARSE_SIGMA_S: f64 = 0.000_25;
+/// Stretch either side of the comparator's switching searched for an edge, s
+/// (edges up to about 15 ms with room for the occupancy windows).
+const EDGE_SPAN_S: f64 = 0.05;
 
 /// What one element measures, in the capture's own sample indices.
 #[derive(Clone, Debug)]
@@ -46,6 +49,7 @@ pub fn measure(
         return None;
     }
     let coarse = COARSE_SIGMA_S * ctx.fs;
+    let span = (EDGE_SPAN_S * ctx.fs) as usize;
     let rise = measure_edge(
         z,
         &ctx.levels,
@@ -55,6 +59,7 @@ pub fn measure(
             lo,
             hi: down,
             rising: true,
+            span,
         },
         coarse,
     );
@@ -67,6 +72,7 @@ pub fn measure(
             lo: up,
             hi: n - 1,
             rising: false,
+            span,
         },
         coarse,
     );

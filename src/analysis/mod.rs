@@ -155,10 +155,11 @@ fn no_signal(input: InputInfo, s: &SurveyResult) -> Report {
     }
 }
 
-/// Chirp of the average key-down: the elements' deviation traces (each from
-/// its own settled frequency) averaged point by point from the 50 % rise, then
-/// fitted like one element's. Averaging N elements cuts the trace noise by
-/// sqrt(N), so a chirp too small to see in one element shows here. Dits are
+/// Chirp of the typical key-down: the elements' deviation traces (each from
+/// its own settled frequency) combined point by point from the 50 % rise (the
+/// median across elements), then fitted like one element's. Combining N
+/// elements cuts the trace noise by about sqrt(N), so a chirp too small to
+/// see in one element shows here. Dits are
 /// used when there are enough of them (they share one length), else all
 /// elements up to the shortest.
 pub fn ensemble_chirp(elements: &[Element]) -> Option<f64> {
@@ -177,10 +178,14 @@ pub fn ensemble_chirp(elements: &[Element]) -> Option<f64> {
         return None;
     }
     let mut tr = Trace::default();
+    // Median across elements at each instant: one element's noise spike
+    // (the trace is weakest at the 50 % point) cannot move it.
+    let mut col = Vec::with_capacity(set.len());
     for i in 0..len {
-        let sum: f64 = set.iter().map(|e| e.trace[i].1 as f64).sum();
+        col.clear();
+        col.extend(set.iter().map(|e| e.trace[i].1 as f64));
         tr.t.push(set[0].trace[i].0 as f64);
-        tr.f.push(sum / set.len() as f64);
+        tr.f.push(median(&col));
         tr.w.push(1.0);
     }
     Some(chirp(&tr).chirp_hz)

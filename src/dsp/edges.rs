@@ -242,6 +242,8 @@ pub struct EdgeSearch {
     pub lo: usize,
     pub hi: usize,
     pub rising: bool,
+    /// Samples either side of `near` worth looking at (bounds the work).
+    pub span: usize,
 }
 
 /// Crossing-time jitter allowed from noise, as a share of the edge time.
@@ -263,6 +265,37 @@ pub fn measure_edge(
     at: EdgeSearch,
     coarse_sigma: f64,
 ) -> Option<(Edge, f64)> {
+    // Work on the stretch around the edge only.
+    let a = at.lo.max(at.near.saturating_sub(at.span));
+    let b = (at.hi.min(at.near + at.span) + 1).min(z.len());
+    if b <= a + 4 || at.near < a || at.near >= b {
+        return None;
+    }
+    let local = EdgeSearch {
+        near: at.near - a,
+        lo: 0,
+        hi: b - a - 1,
+        ..at
+    };
+    let (e, w) = measure_edge_local(&z[a..b], lv, noise_power, local, coarse_sigma)?;
+    let off = a as f64;
+    Some((
+        Edge {
+            t10: e.t10 + off,
+            t50: e.t50 + off,
+            t90: e.t90 + off,
+        },
+        w,
+    ))
+}
+
+fn measure_edge_local(
+    z: &[Complex32],
+    lv: &StateLevels,
+    noise_power: f64,
+    at: EdgeSearch,
+    coarse_sigma: f64,
+) -> Option<(Edge, f64)> {
     let find = |env: &[f64]| {
         if at.rising {
             rise_edge(env, lv, at.near, at.lo, at.hi)
@@ -271,7 +304,8 @@ pub fn measure_edge(
         }
     };
     let k0 = gaussian_kernel(coarse_sigma);
-    let coarse = find(&envelope(z, &k0, noise_power))?;
+    let env0 = envelope(z, &k0, noise_power);
+    let coarse = find(&env0)?;
 
     let s0 = if k0.len() > 1 { coarse_sigma } else { 0.0 };
     let w_est = (coarse.width().powi(2) - (GAUSS_10_90_PER_SIGMA * s0).powi(2))
@@ -285,7 +319,6 @@ pub fn measure_edge(
     };
     // Slope at the flatter of the 10 % and 90 % crossings, in high-levels
     // per edge time (0.8 for a straight ramp; an RC tail is far flatter).
-    let env0 = envelope(z, &k0, noise_power);
     let d = (0.25 * w_est).max(1.0);
     let slope_at = |t: f64| {
         let i0 = (t - d).max(0.0) as usize;
@@ -371,6 +404,7 @@ mod tests {
             lo: 0,
             hi: n - 1,
             rising: true,
+            span: 600,
         };
         let (e, w) = measure_edge(&z, &lv, 0.0, at, 2.0).unwrap();
         assert!((e.t50 - 1000.0).abs() < 0.6, "{e:?}");

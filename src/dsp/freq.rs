@@ -70,8 +70,15 @@ pub struct Trace {
 pub fn trace(z: &[Complex32], fs: f64, t50r: f64, t50f: f64) -> Trace {
     let k = super::edges::gaussian_kernel(PREFILTER_SIGMA_S * fs);
     let h = k.len() / 2;
+    let n = ((TRACE_WINDOW_S * fs).round() as usize).max(3);
+    // Only the stretch the Kay windows will read needs filtering.
+    let lo = (t50r - n as f64).max(0.0) as usize;
+    let hi = ((t50f + n as f64 + 2.0) as usize).min(z.len());
     let zf: Vec<Complex32> = (0..z.len())
         .map(|i| {
+            if i < lo || i >= hi {
+                return Complex32::new(0.0, 0.0);
+            }
             let mut acc = Complex64::new(0.0, 0.0);
             for (j, w) in k.iter().enumerate() {
                 if let Some(v) = (i + j).checked_sub(h).and_then(|q| z.get(q)) {
@@ -82,7 +89,6 @@ pub fn trace(z: &[Complex32], fs: f64, t50r: f64, t50f: f64) -> Trace {
         })
         .collect();
     let z = &zf[..];
-    let n = ((TRACE_WINDOW_S * fs).round() as usize).max(3);
     let w = kay_weights(n);
     let step = TRACE_STEP_S * fs;
     let mut out = Trace::default();
@@ -117,20 +123,9 @@ pub struct ChirpFit {
     pub tau_s: f64,
 }
 
-/// Weighted least squares for y ~ X beta with up to 3 columns (normal equations).
-fn wls(cols: &[&[f64]], y: &[f64], w: &[f64]) -> Option<(Vec<f64>, f64)> {
-    let k = cols.len();
-    let mut a = [[0.0f64; 3]; 3];
-    let mut b = [0.0f64; 3];
-    for i in 0..y.len() {
-        for r in 0..k {
-            b[r] += w[i] * cols[r][i] * y[i];
-            for c in 0..k {
-                a[r][c] += w[i] * cols[r][i] * cols[c][i];
-            }
-        }
-    }
-    // Gaussian elimination with partial pivoting.
+/// Solves the k x k normal equations (k <= 3) by Gaussian elimination with
+/// partial pivoting; None when singular.
+fn solve(a: [[f64; 3]; 3], b: [f64; 3], k: usize) -> Option<Vec<f64>> {
     let mut m = a;
     let mut v = b;
     for p in 0..k {
@@ -143,8 +138,8 @@ fn wls(cols: &[&[f64]], y: &[f64], w: &[f64]) -> Option<(Vec<f64>, f64)> {
         for r in p + 1..k {
             let f = m[r][p] / m[p][p];
             let pivot_row = m[p];
-            for (c, v) in m[r].iter_mut().enumerate().take(k).skip(p) {
-                *v -= f * pivot_row[c];
+            for (c, x) in m[r].iter_mut().enumerate().take(k).skip(p) {
+                *x -= f * pivot_row[c];
             }
             v[r] -= f * v[p];
         }
@@ -157,13 +152,84 @@ fn wls(cols: &[&[f64]], y: &[f64], w: &[f64]) -> Option<(Vec<f64>, f64)> {
         }
         beta[p] = s / m[p][p];
     }
-    let mut rss = 0.0;
-    for i in 0..y.len() {
-        let fit: f64 = (0..k).map(|r| beta[r] * cols[r][i]).sum();
-        rss += w[i] * (y[i] - fit).powi(2);
-    }
-    Some((beta, rss))
+    Some(beta)
 }
+
+/// Chirp models: 0 constant, 1 linear, 2 exponential decay, 3 both.
+fn basis(model: u8, tau: f64, t: f64, mid: f64) -> [f64; 3] {
+    let e = if model >= 2 { (-t / tau).exp() } else { 0.0 };
+    match model {
+        0 => [1.0, 0.0, 0.0],
+        1 => [1.0, t - mid, 0.0],
+        2 => [1.0, e, 0.0],
+        _ => [1.0, t - mid, e],
+    }
+}
+
+fn model_cols(model: u8) -> usize {
+    match model {
+        0 => 1,
+        1 | 2 => 2,
+        _ => 3,
+    }
+}
+
+/// Weighted least squares of one model on (t, f, w); returns (RSS, beta).
+/// Normal equations are accumulated in one pass without allocation, and the
+/// residual comes from RSS = sum(w y^2) - beta . X'Wy.
+fn fit_model(
+    model: u8,
+    tau: f64,
+    t: &[f64],
+    f: &[f64],
+    w: &[f64],
+    mid: f64,
+) -> Option<(f64, Vec<f64>)> {
+    let k = model_cols(model);
+    let mut a = [[0.0f64; 3]; 3];
+    let mut v = [0.0f64; 3];
+    let mut yy = 0.0;
+    // exp(-t/tau) by recurrence on the uniform grid, refreshed every 64 points.
+    let uniform = t.len() > 2 && ((t[2] - t[1]) - (t[1] - t[0])).abs() < 1e-12;
+    let step = if t.len() > 1 {
+        (-(t[1] - t[0]) / tau).exp()
+    } else {
+        0.0
+    };
+    let mut e = 0.0;
+    for i in 0..t.len() {
+        let x = t[i];
+        if model >= 2 {
+            e = if !uniform || i % 64 == 0 {
+                (-x / tau).exp()
+            } else {
+                e * step
+            };
+        }
+        let r = match model {
+            0 => [1.0, 0.0, 0.0],
+            1 => [1.0, x - mid, 0.0],
+            2 => [1.0, e, 0.0],
+            _ => [1.0, x - mid, e],
+        };
+        let wi = w[i];
+        let yi = f[i];
+        yy += wi * yi * yi;
+        for p in 0..k {
+            v[p] += wi * r[p] * yi;
+            for q in 0..k {
+                a[p][q] += wi * r[p] * r[q];
+            }
+        }
+    }
+    let beta = solve(a, v, k)?;
+    let rss = yy - (0..k).map(|p| beta[p] * v[p]).sum::<f64>();
+    Some((rss.max(0.0), beta))
+}
+
+/// Points of the trace used for fitting: every other one (the trace is
+/// sampled several times per window, so this loses nothing but time).
+const FIT_STRIDE: usize = 2;
 
 /// Fits the trace and reads the chirp off the chosen model.
 pub fn chirp(tr: &Trace) -> ChirpFit {
@@ -185,109 +251,107 @@ pub fn chirp(tr: &Trace) -> ChirpFit {
     if wsum <= 0.0 {
         return ChirpFit::default();
     }
-    let w: Vec<f64> = tr.w.iter().map(|v| v / wsum * n as f64).collect();
-    let ones = vec![1.0; n];
-    let tc: Vec<f64> = tr.t.iter().map(|t| t - dur / 2.0).collect();
-    // Trace points overlap: about one independent point per window.
+    let idx: Vec<usize> = (0..n).step_by(FIT_STRIDE).collect();
+    let m = idx.len();
+    let t: Vec<f64> = idx.iter().map(|&i| tr.t[i]).collect();
+    let f: Vec<f64> = idx.iter().map(|&i| tr.f[i]).collect();
+    let ws: f64 = idx.iter().map(|&i| tr.w[i]).sum();
+    let w: Vec<f64> = idx
+        .iter()
+        .map(|&i| tr.w[i] / ws.max(1e-300) * m as f64)
+        .collect();
+    let mid = dur / 2.0;
+    // Trace points overlap: about one independent point per window. The
+    // criterion is Akaike's (2 per parameter) on that effective count.
     let n_eff = (dur / TRACE_WINDOW_S).max(2.0);
-    let bic = |rss: f64, k: f64| n_eff * (rss.max(1e-18) / n as f64).ln() + k * 2.0;
+    let score = |rss: f64, k: f64| n_eff * (rss.max(1e-18) / m as f64).ln() + k * 2.0;
 
+    // (score, model, tau, beta)
     let mut best: (f64, u8, f64, Vec<f64>) = (f64::INFINITY, 0, 0.0, vec![]);
-    if let Some((beta, rss)) = wls(&[&ones], &tr.f, &w) {
-        best = (
-            bic(rss, 1.0),
-            0,
-            0.0,
-            ones.iter().map(|_| beta[0]).collect(),
-        );
-    }
-    if let Some((beta, rss)) = wls(&[&ones, &tc], &tr.f, &w) {
-        let s = bic(rss, 2.0);
-        if s < best.0 {
-            best = (
-                s,
-                1,
-                0.0,
-                tc.iter().map(|t| beta[0] + beta[1] * t).collect(),
-            );
+    for model in [0u8, 1] {
+        if let Some((rss, beta)) = fit_model(model, 0.0, &t, &f, &w, mid) {
+            let sc = score(rss, model_cols(model) as f64);
+            if sc < best.0 {
+                best = (sc, model, 0.0, beta);
+            }
         }
     }
-    let fit_exp = |tau: f64, lin: bool| -> Option<(f64, Vec<f64>)> {
-        let e: Vec<f64> = tr.t.iter().map(|t| (-t / tau).exp()).collect();
-        if lin {
-            let (beta, rss) = wls(&[&ones, &tc, &e], &tr.f, &w)?;
-            Some((
-                bic(rss, 4.0),
-                (0..n)
-                    .map(|i| beta[0] + beta[1] * tc[i] + beta[2] * e[i])
-                    .collect(),
-            ))
-        } else {
-            let (beta, rss) = wls(&[&ones, &e], &tr.f, &w)?;
-            Some((
-                bic(rss, 3.0),
-                e.iter().map(|x| beta[0] + beta[1] * x).collect(),
-            ))
-        }
-    };
-    for lin in [false, true] {
+    for model in [2u8, 3] {
+        let k = model_cols(model) as f64 + 1.0; // the time constant is a parameter too
+        let eval =
+            |tau: f64| fit_model(model, tau, &t, &f, &w, mid).map(|(rss, b)| (score(rss, k), b));
         // Coarse grid of time constants, then golden-section refinement.
         let mut grid_best: Option<(f64, f64)> = None;
         let mut tau = 0.000_5;
         while tau <= 0.3 && tau <= 3.0 * dur {
-            if let Some((s, _)) = fit_exp(tau, lin) {
-                if grid_best.is_none_or(|g| s < g.0) {
-                    grid_best = Some((s, tau));
+            if let Some((sc, _)) = eval(tau) {
+                if grid_best.is_none_or(|g| sc < g.0) {
+                    grid_best = Some((sc, tau));
                 }
             }
-            tau *= 1.25;
+            tau *= 1.35;
         }
         let Some((_, t0)) = grid_best else { continue };
-        let (mut a, mut b) = ((t0 / 1.25).ln(), (t0 * 1.25).ln());
+        let (mut a, mut b) = ((t0 / 1.35).ln(), (t0 * 1.35).ln());
         let g = 0.618_033_988_75;
-        let score = |lt: f64| fit_exp(lt.exp(), lin).map_or(f64::INFINITY, |v| v.0);
-        for _ in 0..24 {
-            let c = b - g * (b - a);
-            let d = a + g * (b - a);
-            if score(c) < score(d) {
+        let sc = |lt: f64| eval(lt.exp()).map_or(f64::INFINITY, |v| v.0);
+        let (mut c, mut d) = (b - g * (b - a), a + g * (b - a));
+        let (mut fc, mut fd) = (sc(c), sc(d));
+        for _ in 0..14 {
+            if fc < fd {
                 b = d;
+                d = c;
+                fd = fc;
+                c = b - g * (b - a);
+                fc = sc(c);
             } else {
                 a = c;
+                c = d;
+                fc = fd;
+                d = a + g * (b - a);
+                fd = sc(d);
             }
         }
         let tau = (0.5 * (a + b)).exp();
-        if let Some((s, m)) = fit_exp(tau, lin) {
-            if s < best.0 {
-                best = (s, if lin { 3 } else { 2 }, tau, m);
+        if let Some((s2, beta)) = eval(tau) {
+            if s2 < best.0 {
+                best = (s2, model, tau, beta);
             }
         }
     }
-    let model = best.3;
-    if model.is_empty() {
+    if best.3.is_empty() {
         return ChirpFit {
             settled_hz: settled_raw,
             raw_hz: raw,
             ..Default::default()
         };
     }
+    let (model_id, tau, beta) = (best.1, best.2, best.3);
+    let model: Vec<f64> =
+        tr.t.iter()
+            .map(|&x| {
+                let r = basis(model_id, tau, x, mid);
+                (0..beta.len()).map(|c| beta[c] * r[c]).sum()
+            })
+            .collect();
     let mv: Vec<f64> = half.iter().map(|&i| model[i]).collect();
     let settled = weighted_median(&mv, &hw);
     let chirp = model
         .iter()
-        .map(|m| (m - settled).abs())
+        .map(|v| (v - settled).abs())
         .fold(0.0, f64::max);
+    let wn: Vec<f64> = tr.w.iter().map(|v| v / wsum).collect();
     let res: f64 = (0..n)
-        .map(|i| w[i] * (tr.f[i] - model[i]).powi(2))
-        .sum::<f64>()
-        / n as f64;
+        .map(|i| wn[i] * (tr.f[i] - model[i]).powi(2))
+        .sum::<f64>();
     ChirpFit {
         settled_hz: settled,
         // The model smooths the trace; it can never deviate more than the trace did.
-        chirp_hz: if best.1 == 0 { 0.0 } else { chirp.min(raw) },
+        chirp_hz: if model_id == 0 { 0.0 } else { chirp.min(raw) },
         raw_hz: raw,
         noise_hz: res.sqrt(),
-        model: best.1,
-        tau_s: best.2,
+        model: model_id,
+        tau_s: tau,
     }
 }
 

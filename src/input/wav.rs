@@ -13,19 +13,21 @@ use crate::error::{CwError, Result};
 pub const MIN_RATE_HZ: u32 = 8_000;
 pub const MAX_RATE_HZ: u32 = 384_000;
 
-enum Backend {
-    Hound(hound::WavReader<BufReader<File>>),
-    Float64(BufReader<File>),
+/// How samples are stored: bytes per sample and whether they are float.
+#[derive(Clone, Copy, Debug)]
+struct Encoding {
+    bytes: usize,
+    float: bool,
 }
 
 /// A WAV file opened for block-wise reading.
 pub struct WavSource {
     path: PathBuf,
     info: StreamInfo,
-    backend: Backend,
+    reader: BufReader<File>,
+    enc: Encoding,
     frames_left: u64,
     frames_read: u64,
-    int_scale: f32,
     bytes: Vec<u8>,
 }
 
@@ -47,7 +49,9 @@ impl WavSource {
         if meta.len() == 0 {
             return Err(CwError::input(path, "is empty (zero bytes)"));
         }
-        let (backend, info, frames) =
+        // hound checks the header; the samples are then read block-wise
+        // straight from the data chunk (hound's per-sample reads are slow).
+        let (info, frames) =
             match hound::WavReader::open(path) {
                 Ok(r) => {
                     let spec = r.spec();
@@ -62,12 +66,12 @@ impl WavSource {
                         },
                         frames: Some(frames),
                     };
-                    (Backend::Hound(r), info, frames)
+                    (info, frames)
                 }
                 Err(hound::Error::FormatError(m)) if m.contains("bits per sample is not 32") => {
-                    open_float64(path)?
+                    float64_info(path)?
                 }
-                Err(hound::Error::Unsupported) => match open_float64(path) {
+                Err(hound::Error::Unsupported) => match float64_info(path) {
                     Ok(v) => v,
                     Err(_) => return Err(CwError::input(
                         path,
@@ -91,18 +95,26 @@ impl WavSource {
         if frames == 0 {
             return Err(CwError::input(path, "holds no audio samples"));
         }
-        let int_scale = if info.sample_format == "int" {
-            1.0 / (1u64 << (info.bits.clamp(8, 32) - 1)) as f32
-        } else {
-            1.0
-        };
+        let lay = riff_layout(path)?;
+        let bytes = lay.block_align as usize / info.channels as usize;
+        let float = info.sample_format == "float";
+        if bytes == 0 || (float && bytes != 4 && bytes != 8) || (!float && bytes > 4) {
+            return Err(CwError::input(path, "has an inconsistent format chunk"));
+        }
+        let mut reader = BufReader::with_capacity(
+            1 << 16,
+            File::open(path).map_err(|e| CwError::input(path, format!("cannot be read ({e})")))?,
+        );
+        reader
+            .seek(SeekFrom::Start(lay.data_offset))
+            .map_err(|_| CwError::input(path, "has a data chunk past its end"))?;
         Ok(WavSource {
             path: path.to_path_buf(),
             info,
-            backend,
+            reader,
+            enc: Encoding { bytes, float },
             frames_left: frames,
             frames_read: 0,
-            int_scale,
             bytes: Vec::new(),
         })
     }
@@ -145,8 +157,20 @@ fn describe_hound_error(e: &hound::Error) -> String {
     }
 }
 
-/// Walks RIFF chunks for an IEEE-float file with 64-bit samples.
-fn open_float64(path: &Path) -> Result<(Backend, StreamInfo, u64)> {
+/// Where a WAV file's samples are, from its RIFF chunks.
+#[derive(Clone, Copy, Debug)]
+struct Layout {
+    tag: u16,
+    channels: u16,
+    rate: u32,
+    bits: u16,
+    block_align: u16,
+    data_offset: u64,
+    data_len: u64,
+}
+
+/// Walks the RIFF chunks up to the data chunk.
+fn riff_layout(path: &Path) -> Result<Layout> {
     let bad = |m: &str| CwError::input(path, m.to_string());
     let f = File::open(path).map_err(|e| CwError::input(path, format!("cannot be read ({e})")))?;
     let file_len = f.metadata().map(|m| m.len()).unwrap_or(0);
@@ -157,7 +181,7 @@ fn open_float64(path: &Path) -> Result<(Backend, StreamInfo, u64)> {
     if &hdr[0..4] != b"RIFF" || &hdr[8..12] != b"WAVE" {
         return Err(bad("is not a WAV file (no RIFF/WAVE header)"));
     }
-    let mut fmt: Option<(u16, u16, u32, u16)> = None;
+    let mut fmt: Option<(u16, u16, u32, u16, u16)> = None;
     loop {
         let mut ch = [0u8; 8];
         r.read_exact(&mut ch)
@@ -174,44 +198,36 @@ fn open_float64(path: &Path) -> Result<(Backend, StreamInfo, u64)> {
                 let mut tag = u16::from_le_bytes([b[0], b[1]]);
                 let channels = u16::from_le_bytes([b[2], b[3]]);
                 let rate = u32::from_le_bytes([b[4], b[5], b[6], b[7]]);
+                let align = u16::from_le_bytes([b[12], b[13]]);
                 let bits = u16::from_le_bytes([b[14], b[15]]);
                 if tag == 0xFFFE && len >= 40 {
                     tag = u16::from_le_bytes([b[24], b[25]]);
                 }
-                fmt = Some((tag, channels, rate, bits));
+                fmt = Some((tag, channels, rate, bits, align));
                 if len % 2 == 1 {
                     r.seek(SeekFrom::Current(1)).ok();
                 }
             }
             b"data" => {
-                let (tag, channels, rate, bits) =
+                let (tag, channels, rate, bits, block_align) =
                     fmt.ok_or_else(|| bad("has its data before its format chunk"))?;
-                if tag != 3 || bits != 64 {
-                    return Err(bad(
-                        "uses a WAV encoding cwaudit cannot read (use PCM integer or IEEE float)",
-                    ));
-                }
-                if channels == 0 {
-                    return Err(bad("declares zero channels"));
-                }
-                let frame_bytes = 8 * channels as u64;
                 let pos = r.stream_position().unwrap_or(0);
                 // A streaming writer may leave the size at 0 or 0xFFFFFFFF: use what the file holds.
                 let avail = file_len.saturating_sub(pos);
-                let declared = if len == 0 || len == u32::MAX as u64 {
+                let data_len = if len == 0 || len == u32::MAX as u64 {
                     avail
                 } else {
                     len
                 };
-                let frames = declared / frame_bytes;
-                let info = StreamInfo {
-                    sample_rate_hz: rate,
+                return Ok(Layout {
+                    tag,
                     channels,
-                    bits: 64,
-                    sample_format: "float".into(),
-                    frames: Some(frames),
-                };
-                return Ok((Backend::Float64(r), info, frames));
+                    rate,
+                    bits,
+                    block_align,
+                    data_offset: pos,
+                    data_len,
+                });
             }
             _ => {
                 let skip = len + (len % 2);
@@ -220,6 +236,29 @@ fn open_float64(path: &Path) -> Result<(Backend, StreamInfo, u64)> {
             }
         }
     }
+}
+
+/// Stream description of an IEEE-float file with 64-bit samples (which hound does not read).
+fn float64_info(path: &Path) -> Result<(StreamInfo, u64)> {
+    let l = riff_layout(path)?;
+    if l.tag != 3 || l.bits != 64 {
+        return Err(CwError::input(
+            path,
+            "uses a WAV encoding cwaudit cannot read (use PCM integer or IEEE float)",
+        ));
+    }
+    if l.channels == 0 {
+        return Err(CwError::input(path, "declares zero channels"));
+    }
+    let frames = l.data_len / (8 * l.channels as u64);
+    let info = StreamInfo {
+        sample_rate_hz: l.rate,
+        channels: l.channels,
+        bits: 64,
+        sample_format: "float".into(),
+        frames: Some(frames),
+    };
+    Ok((info, frames))
 }
 
 impl FrameSource for WavSource {
@@ -236,41 +275,40 @@ impl FrameSource for WavSource {
         let ch = self.info.channels as usize;
         let n = want * ch;
         out.reserve(n);
-        match &mut self.backend {
-            Backend::Hound(r) => {
-                if self.info.sample_format == "float" {
-                    for s in r.samples::<f32>().take(n) {
-                        match s {
-                            Ok(v) => out.push(v),
-                            Err(_) => break,
-                        }
-                    }
-                } else {
-                    let scale = self.int_scale;
-                    for s in r.samples::<i32>().take(n) {
-                        match s {
-                            Ok(v) => out.push(v as f32 * scale),
-                            Err(_) => break,
-                        }
-                    }
-                }
+        let nbytes = n * self.enc.bytes;
+        self.bytes.resize(nbytes, 0);
+        let mut got = 0;
+        while got < nbytes {
+            match self.reader.read(&mut self.bytes[got..]) {
+                Ok(0) => break,
+                Ok(k) => got += k,
+                Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
+                Err(_) => break,
             }
-            Backend::Float64(r) => {
-                self.bytes.resize(n * 8, 0);
-                let mut got = 0;
-                while got < self.bytes.len() {
-                    match r.read(&mut self.bytes[got..]) {
-                        Ok(0) => break,
-                        Ok(k) => got += k,
-                        Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
-                        Err(_) => break,
-                    }
-                }
-                for c in self.bytes[..got - got % 8].chunks_exact(8) {
-                    let v = f64::from_le_bytes([c[0], c[1], c[2], c[3], c[4], c[5], c[6], c[7]]);
-                    out.push(v as f32);
-                }
-            }
+        }
+        let raw = &self.bytes[..got - got % self.enc.bytes];
+        match (self.enc.float, self.enc.bytes) {
+            (false, 1) => out.extend(raw.iter().map(|&b| (b as f32 - 128.0) / 128.0)),
+            (false, 2) => out.extend(
+                raw.chunks_exact(2)
+                    .map(|c| i16::from_le_bytes([c[0], c[1]]) as f32 / 32_768.0),
+            ),
+            (false, 3) => out
+                .extend(raw.chunks_exact(3).map(|c| {
+                    (i32::from_le_bytes([0, c[0], c[1], c[2]]) >> 8) as f32 / 8_388_608.0
+                })),
+            // 32-bit containers hold 32-bit samples or left-justified 24-bit ones.
+            (false, _) => out
+                .extend(raw.chunks_exact(4).map(|c| {
+                    i32::from_le_bytes([c[0], c[1], c[2], c[3]]) as f32 / 2_147_483_648.0
+                })),
+            (true, 4) => out.extend(
+                raw.chunks_exact(4)
+                    .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]])),
+            ),
+            (true, _) => out.extend(raw.chunks_exact(8).map(|c| {
+                f64::from_le_bytes([c[0], c[1], c[2], c[3], c[4], c[5], c[6], c[7]]) as f32
+            })),
         }
         if out.len() < n {
             // Keep whole frames only; report the truncation.
