@@ -71,6 +71,7 @@ pub struct DemoArgs {
 
 fn analyze(a: &AnalyzeArgs) -> Result<i32> {
     let opt = Options {
+        necessary_k: None,
         channel: a.channel,
         tone_hz: a.tone,
     };

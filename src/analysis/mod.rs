@@ -3,8 +3,10 @@
 
 pub mod element;
 pub mod report;
+pub mod spectral;
 pub mod timing;
 pub mod tracker;
+pub mod views;
 pub mod warnings;
 
 use std::path::Path;
@@ -30,6 +32,8 @@ pub struct Options {
     pub channel: Option<u16>,
     /// Pitch to analyse, Hz; None picks the strongest keyed tone.
     pub tone_hz: Option<f64>,
+    /// K of the necessary bandwidth B K (default 5, fading circuits).
+    pub necessary_k: Option<f64>,
 }
 
 /// Which tone to follow, from the survey and the options.
@@ -123,7 +127,11 @@ pub fn analyze_file(path: &Path, opt: &Options) -> Result<Report> {
         tr.push(&mono);
     }
     tr.finish();
-    Ok(build_report(input, &tr, info.sample_rate_hz))
+    let mut rep = build_report(input, &tr, info.sample_rate_hz);
+    if rep.summary.keyed_signal_found {
+        add_spectral(&mut rep, path, channel, opt)?;
+    }
+    Ok(rep)
 }
 
 fn no_signal(input: InputInfo, s: &SurveyResult) -> Report {
@@ -152,6 +160,7 @@ fn no_signal(input: InputInfo, s: &SurveyResult) -> Report {
         },
         elements: vec![],
         warnings,
+        views: Default::default(),
     }
 }
 
@@ -219,6 +228,36 @@ pub fn mean_edges_ms(tr: &ToneTracker) -> (Option<f64>, Option<f64>) {
         e.map(|e| ms(e.width()))
     };
     (one(r, true), one(f, false))
+}
+
+/// Third pass: spectra, bandwidths, clicks and the picture data.
+fn add_spectral(rep: &mut Report, path: &Path, channel: usize, opt: &Options) -> Result<()> {
+    let s = &rep.summary;
+    let (Some(tone), Some(level)) = (s.tone_hz, s.level_dbfs) else {
+        return Ok(());
+    };
+    let els: Vec<(f64, f64)> = rep
+        .elements
+        .iter()
+        .map(|e| (e.start_s, e.start_s + e.duration_s))
+        .collect();
+    let inp = spectral::SpectralInput {
+        path,
+        channel,
+        tone_hz: tone,
+        carrier_power: 10f64.powf(level / 10.0),
+        elements: &els,
+        unit_s: s.unit_ms.map(|u| u / 1e3),
+        k: opt.necessary_k.unwrap_or(spectral::DEFAULT_K),
+    };
+    let out = spectral::spectral_pass(&inp)?;
+    rep.views.spectrum = out.spectrum;
+    rep.views.noise = out.noise;
+    rep.views.spectrogram = out.spectrogram;
+    rep.views.envelope = out.envelope;
+    rep.summary.spectral = out.figures;
+    rep.warnings.extend(warnings::spectral(rep));
+    Ok(())
 }
 
 /// Turns a finished tracker into a report.
@@ -301,6 +340,7 @@ pub fn build_report(input: InputInfo, tr: &ToneTracker, fs: u32) -> Report {
             - (band.lo_hz - band.lo_rolloff_hz / 2.0),
         rise_floor_ms: rise_floor_s(fs, tr.center_hz()) * 1e3,
         baseband_rate_hz: dc.out_rate_hz(),
+        spectral: Default::default(),
     };
     let mut rep = Report {
         tool: "cwaudit".into(),
@@ -309,6 +349,7 @@ pub fn build_report(input: InputInfo, tr: &ToneTracker, fs: u32) -> Report {
         summary,
         elements,
         warnings: vec![],
+        views: Default::default(),
     };
     rep.warnings = warnings::collect(&rep, tr);
     rep

@@ -110,6 +110,9 @@ pub struct Summary {
     pub rise_floor_ms: f64,
     /// Sample rate of the complex baseband the elements are measured on, Hz.
     pub baseband_rate_hz: f64,
+    /// Key clicks and bandwidths from the spectral pass.
+    #[serde(flatten)]
+    pub spectral: super::spectral::SpectralFigures,
 }
 
 /// The whole report for one recording.
@@ -121,4 +124,7 @@ pub struct Report {
     pub summary: Summary,
     pub elements: Vec<Element>,
     pub warnings: Vec<String>,
+    /// Arrays behind the pictures (not written to JSON).
+    #[serde(skip)]
+    pub views: super::views::Views,
 }

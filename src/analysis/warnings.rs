@@ -118,3 +118,49 @@ pub fn collect(r: &Report, tr: &ToneTracker) -> Vec<String> {
     }
     w
 }
+
+/// Warnings about what the recording's passband and the spectrum allow.
+pub fn spectral(r: &Report) -> Vec<String> {
+    let mut w = Vec::new();
+    let s = &r.summary;
+    let sp = &s.spectral;
+    let Some(tone) = s.tone_hz else { return w };
+    let edges = sp
+        .occupied_edges_hz
+        .or(sp.bandwidth_edges_hz.get("20").copied().flatten());
+    if let (Some([lo, hi]), Some([pa, pb])) = (edges, sp.passband_hz) {
+        let margin = 2.0 * sp.rbw_hz.max(10.0);
+        if tone + lo <= pa + margin || tone + hi >= pb - margin {
+            w.push(format!(
+                "The sidebands reach the edge of the receiver's passband ({pa:.0}-{pb:.0} Hz): the real signal may be wider than measured. Use the widest receiver filter and put the pitch near its middle."
+            ));
+        }
+    }
+    if let Some([lo, _]) = edges {
+        if tone + lo < 2.0 * sp.rbw_hz.max(10.0) {
+            w.push(format!(
+                "The lower sideband reaches 0 Hz (pitch {tone:.0} Hz) and folds back over itself: raise the pitch so the whole signal fits above 0 Hz."
+            ));
+        }
+    }
+    if let (Some([pa, pb]), Some(rise)) = (sp.passband_hz, s.rise_ms) {
+        // A band-pass of width BW has a 10-90 % time of about 0.8/BW to 1.1/BW
+        // (BRIEF.md, Butterworth orders 2-6 computed with scipy.signal).
+        let bw = (pb - pa).max(1.0);
+        let floor_ms = 1.1 / bw * 1e3;
+        if rise.median < 1.5 * floor_ms {
+            w.push(format!(
+                "Rise times (median {:.2} ms) approach the {floor_ms:.2} ms that the receiver's {bw:.0} Hz passband allows: use a wider filter.",
+                rise.median
+            ));
+        }
+    }
+    if let Some(k) = sp.occupied_to_necessary_ratio {
+        if k > 2.0 {
+            w.push(format!(
+                "The occupied bandwidth is {k:.1} times the necessary bandwidth B*K: the keying throws clicks."
+            ));
+        }
+    }
+    w
+}
