@@ -142,6 +142,25 @@ impl Welch {
     }
 }
 
+/// Mean power spectrum |X[k]|^2 of `x` by Welch's method (Hann window,
+/// 50 % overlap, no detrending), bins 0..=n/2: the same estimator the pass
+/// uses, exposed for checks against scipy.signal.welch.
+pub fn welch_power(x: &[f32], n: usize) -> Vec<f64> {
+    let mut w = Welch::new(n);
+    let mut i = 0;
+    while i + n <= x.len() {
+        w.add(&x[i..i + n]);
+        i += n / 2;
+    }
+    w.sum.iter().map(|v| v / w.frames.max(1) as f64).collect()
+}
+
+/// Necessary bandwidth of Morse telegraphy, Bn = B K (Radio Regulations
+/// Appendix 1, ITU-R SM.1138), B the modulation rate in baud.
+pub fn necessary_bandwidth_hz(baud: f64, k: f64) -> f64 {
+    baud * k
+}
+
 /// Frame length for the main spectrum: about 0.17 s (RBW ~ 9 Hz at any
 /// rate), shorter when the keyed passage would give fewer than 8 frames.
 fn main_len(fs: u32, passage_s: f64) -> usize {
@@ -435,7 +454,7 @@ pub fn spectral_pass(inp: &SpectralInput) -> Result<SpectralOutput> {
     }
     // Necessary bandwidth Bn = B K, B = 1 / unit (Radio Regulations App. 1).
     if let Some(u) = inp.unit_s {
-        let bn = inp.k / u;
+        let bn = necessary_bandwidth_hz(1.0 / u, inp.k);
         fig.necessary_bandwidth_hz = Some(bn);
         fig.occupied_to_necessary_ratio = fig.occupied_bandwidth_hz.map(|o| o / bn);
     }
@@ -574,4 +593,32 @@ fn passband(noise: &[f64], bin: f64, tone_hz: f64) -> Option<[f64; 2]> {
         return None;
     }
     Some([lo.unwrap_or(0.0), hi.unwrap_or((n - 1) as f64 * bin)])
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn necessary_bandwidth_worked_example() {
+        // Radio Regulations Appendix 1 example (from memory, BRIEF.md):
+        // 25 WPM, B = 20 baud, K = 5 -> 100 Hz (designation 100HA1AAN).
+        assert!((necessary_bandwidth_hz(20.0, 5.0) - 100.0).abs() < 1e-12);
+        // PARIS timing gives B = 1/unit = 25/1.2 = 20.83 baud at 25 WPM;
+        // the example rounds B to 20.
+        assert!((necessary_bandwidth_hz(25.0 / 1.2, 3.0) - 62.5).abs() < 1e-9);
+    }
+
+    #[test]
+    fn welch_of_a_bin_centred_sine_is_the_reference() {
+        // Analytic: a sine of amplitude A on bin k has |X[k]|^2 = (A sum(w) / 2)^2.
+        let n = 1024;
+        let x: Vec<f32> = (0..8192)
+            .map(|i| (0.5 * (2.0 * std::f64::consts::PI * 64.0 * i as f64 / n as f64).sin()) as f32)
+            .collect();
+        let p = welch_power(&x, n);
+        let wsum: f64 = hann(n).iter().map(|&w| w as f64).sum();
+        let r = (0.5 * wsum / 2.0).powi(2);
+        assert!((p[64] / r - 1.0).abs() < 1e-4, "{}", p[64] / r);
+    }
 }
