@@ -4,7 +4,7 @@
 //!
 //! Run: cargo bench --bench accuracy
 
-use cwaudit::accuracy::{crb_freq_std_hz, grid_base, run_case, Case, FORMAT_GRID};
+use cwaudit::accuracy::{crb_freq_std_hz, direct_obw_hz, grid_base, run_case, Case, FORMAT_GRID};
 use cwaudit::analysis::Options;
 use cwaudit::synth::{Chirp, EdgeShape, SynthSpec};
 
@@ -209,6 +209,81 @@ fn main() {
             });
         }
         fails += edge_table("Speed 12 to 40 WPM", &rows);
+    }
+
+    // Bandwidth.
+    if want("bandwidth") {
+        println!("\n### Occupied and x-dB bandwidth (8 kHz, 1000 Hz pitch)\n");
+        println!("Truth of the 99 % bandwidth: a direct DFT of the clean keying pattern (`accuracy::direct_obw_hz`).");
+        println!("x-dB widths: the noisy recording against the same estimator on the clean one; tolerance one RBW.\n");
+        println!("| edges | SNR dB | truth OBW Hz | OBW Hz | error % | tol % | x-dB widths 20/30/40 Hz (clean) | noisy | RBW Hz | within |");
+        println!("|---|---|---|---|---|---|---|---|---|---|");
+        for rise in [0.5, 1.0, 5.0] {
+            let clean = SynthSpec {
+                sample_rate_hz: 8_000,
+                rise_ms: rise,
+                fall_ms: rise,
+                snr_db: None,
+                ..base()
+            };
+            let one = SynthSpec {
+                text: "PARIS".into(),
+                ..clean.clone()
+            };
+            let (x, _) = cwaudit::synth::render(&one).expect("renders");
+            let truth = direct_obw_hz(&x, 8_000.0, 1000.0);
+            let c0 = run(&clean, "bwclean");
+            for snr in [15.0, 25.0, 40.0] {
+                let s = SynthSpec {
+                    snr_db: Some(snr),
+                    seed: next_seed(),
+                    ..clean.clone()
+                };
+                let c = run(&s, "bw");
+                let sp = &c.report.summary.spectral;
+                let obw = sp.occupied_bandwidth_hz.unwrap_or(f64::NAN);
+                let err = 100.0 * (obw - truth) / truth;
+                let tol = if snr >= 25.0 { 10.0 } else { 20.0 };
+                let fmt = |m: &std::collections::BTreeMap<String, Option<f64>>| {
+                    ["20", "30", "40"]
+                        .iter()
+                        .map(|k| {
+                            m.get(*k)
+                                .copied()
+                                .flatten()
+                                .map_or("-".to_string(), |v| format!("{v:.0}"))
+                        })
+                        .collect::<Vec<_>>()
+                        .join("/")
+                };
+                let xdb_ok = ["20", "30", "40"].iter().all(|k| {
+                    match (
+                        c0.report
+                            .summary
+                            .spectral
+                            .bandwidth_hz
+                            .get(*k)
+                            .copied()
+                            .flatten(),
+                        sp.bandwidth_hz.get(*k).copied().flatten(),
+                    ) {
+                        (Some(a), Some(b)) => (a - b).abs() <= sp.rbw_hz,
+                        _ => true,
+                    }
+                });
+                let good = err.abs() <= tol && xdb_ok;
+                if !good {
+                    fails += 1;
+                }
+                println!(
+                    "| {rise} ms | {snr} | {truth:.1} | {obw:.1} | {err:+.1} | {tol} | {} | {} | {:.1} | {} |",
+                    fmt(&c0.report.summary.spectral.bandwidth_hz),
+                    fmt(&sp.bandwidth_hz),
+                    sp.rbw_hz,
+                    ok(good)
+                );
+            }
+        }
     }
 
     // Chirp.

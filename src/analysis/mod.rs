@@ -352,5 +352,11 @@ pub fn build_report(input: InputInfo, tr: &ToneTracker, fs: u32) -> Report {
         views: Default::default(),
     };
     rep.warnings = warnings::collect(&rep, tr);
+    rep.views.edges = views::EdgesView {
+        first_ms: tracker::EDGE_VIEW_FIRST_MS,
+        step_ms: tracker::EDGE_VIEW_STEP_MS,
+        rises: els.iter().map(|e| e.rise_view.clone()).collect(),
+        falls: els.iter().map(|e| e.fall_view.clone()).collect(),
+    };
     rep
 }

@@ -48,7 +48,18 @@ pub struct TrackedElement {
     pub cut: bool,
     /// Frequency trace: (s since 50 % rise, Hz deviation from settled).
     pub trace: Vec<(f32, f32)>,
+    /// Rising and falling edge envelopes on the `EDGE_VIEW_*` grid,
+    /// normalised to the high level (empty beyond `EDGE_VIEW_MAX` elements).
+    pub rise_view: Vec<f32>,
+    pub fall_view: Vec<f32>,
 }
+
+/// Grid of the edge pictures: from -15 ms to +15 ms of the 50 % instant.
+pub const EDGE_VIEW_FIRST_MS: f64 = -15.0;
+pub const EDGE_VIEW_STEP_MS: f64 = 0.25;
+pub const EDGE_VIEW_POINTS: usize = 121;
+/// Elements whose edges are kept for pictures (memory stays bounded).
+pub const EDGE_VIEW_MAX: usize = 400;
 
 /// Noise power from key-up gaps: variance about the mean of 10 ms blocks,
 /// which leaves a steady carrier (backwave) out of the noise.
@@ -407,6 +418,28 @@ impl ToneTracker {
         }
         let t0 = self.dc.time_of(a);
         let ts = |i: f64| t0 + i / self.fs_d;
+        let keep_view = self.elements.len() < EDGE_VIEW_MAX;
+        let high = ctx.levels.high.max(1e-12);
+        let view = |t50: f64, ok: bool| -> Vec<f32> {
+            if !keep_view || !ok {
+                return Vec::new();
+            }
+            (0..EDGE_VIEW_POINTS)
+                .map(|k| {
+                    let x = t50
+                        + (EDGE_VIEW_FIRST_MS + k as f64 * EDGE_VIEW_STEP_MS) * 1e-3 * self.fs_d;
+                    if x < 0.0 || x + 1.0 >= z.len() as f64 {
+                        return f32::NAN;
+                    }
+                    let i = x.floor() as usize;
+                    let f = x - i as f64;
+                    let p = (1.0 - f) * z[i].norm_sqr() as f64 + f * z[i + 1].norm_sqr() as f64;
+                    ((p - pn).max(0.0).sqrt() / high) as f32
+                })
+                .collect()
+        };
+        let rise_view = view(r.t50_rise, r.rise_samples.is_some());
+        let fall_view = view(r.t50_fall, r.fall_samples.is_some());
         let settled = r.chirp.settled_hz;
         self.elements.push(TrackedElement {
             start_s: ts(r.t50_rise),
@@ -435,6 +468,8 @@ impl ToneTracker {
                 .zip(&r.trace.f)
                 .map(|(t, f)| (*t as f32, (f - settled) as f32))
                 .collect(),
+            rise_view,
+            fall_view,
         });
     }
 
