@@ -7,11 +7,14 @@ use clap::{Args, Parser, Subcommand};
 use crate::analysis::{analyze_file, Options};
 use crate::error::{CwError, Result};
 use crate::fsutil::write_atomic;
+use crate::judge::{self, Profile};
 use crate::present;
 
 const AFTER_HELP: &str = "\
-Exit codes: 0 = measured, 2 = the input or the command line could not be used
-(one sentence on stderr says why).
+Exit codes: 0 = measured and no limit failed (warnings allowed), 1 = a figure
+failed its limit (for many files: any file; for compare: the after recording),
+2 = the input, the profile or the command line could not be used (one sentence
+on stderr says why; for many files: none could be measured).
 
 Safety: transmit only where your licence allows, and into a dummy load when
 testing. Keep RF out of the receiver and the sound card: couple loosely or
@@ -36,12 +39,19 @@ pub enum Command {
     Synth(Box<crate::synth::cli::SynthArgs>),
     /// Make a small before/after scenario, analyse it and show the reports.
     Demo(DemoArgs),
+    /// Compare a recording before and after a change: what got better, what got worse.
+    #[command(after_help = AFTER_HELP)]
+    Compare(CompareArgs),
+    /// Print the limits in force (the built-in ones, or a profile's) as a TOML profile.
+    Limits(LimitsArgs),
 }
 
 #[derive(Args, Debug)]
 pub struct AnalyzeArgs {
-    /// The WAV file (PCM 8/16/24/32-bit or 32/64-bit float, 8 to 384 kHz).
-    pub file: PathBuf,
+    /// WAV files (PCM 8/16/24/32-bit or 32/64-bit float, 8 to 384 kHz), or
+    /// folders of them. More than one, or a folder: one summary table.
+    #[arg(required = true, value_name = "FILE")]
+    pub files: Vec<PathBuf>,
     /// Channel to measure, from 1; default: the one with the strongest keyed tone.
     #[arg(long, value_name = "N")]
     pub channel: Option<u16>,
@@ -51,15 +61,54 @@ pub struct AnalyzeArgs {
     /// Print one JSON document instead of the text report.
     #[arg(long)]
     pub json: bool,
-    /// Also write one row per element to this CSV file.
+    /// Also write a CSV file: one row per element for one file, one row per
+    /// file (the summary table) for many.
     #[arg(long, value_name = "FILE")]
     pub csv: Option<PathBuf>,
+    /// Limits to judge by (TOML, see `cwaudit limits`); default: the built-in limits.
+    #[arg(long, value_name = "FILE")]
+    pub profile: Option<PathBuf>,
     /// List every element in the text report.
     #[arg(long)]
     pub elements: bool,
+    /// K of the necessary bandwidth B*K (Radio Regulations Appendix 1):
+    /// 5 for fading circuits (default), 3 for non-fading.
+    #[arg(long, value_name = "K", default_value_t = crate::analysis::spectral::DEFAULT_K)]
+    pub k: f64,
+    /// Pictures and the HTML report.
+    #[command(flatten)]
+    pub view: crate::present::view_args::ViewArgs,
     /// Replace output files that already exist.
     #[arg(long)]
     pub force: bool,
+}
+
+#[derive(Args, Debug)]
+pub struct CompareArgs {
+    /// The recording before the change.
+    pub before: PathBuf,
+    /// The recording after the change.
+    pub after: PathBuf,
+    /// Channel to measure in both, from 1; default: the strongest keyed tone.
+    #[arg(long, value_name = "N")]
+    pub channel: Option<u16>,
+    /// Pitch of the tone to measure in both, Hz; default: the strongest keyed tone.
+    #[arg(long, value_name = "HZ")]
+    pub tone: Option<f64>,
+    /// Print one JSON document instead of the text.
+    #[arg(long)]
+    pub json: bool,
+    /// Limits to judge by (TOML); default: the built-in limits.
+    #[arg(long, value_name = "FILE")]
+    pub profile: Option<PathBuf>,
+}
+
+#[derive(Args, Debug)]
+pub struct LimitsArgs {
+    /// Print this profile's limits (merged with the built-in ones unless it
+    /// says `use_defaults = false`) instead of the built-in ones.
+    #[arg(long, value_name = "FILE")]
+    pub profile: Option<PathBuf>,
 }
 
 #[derive(Args, Debug)]
@@ -69,15 +118,43 @@ pub struct DemoArgs {
     pub dir: Option<PathBuf>,
 }
 
+fn profile(p: Option<&std::path::Path>) -> Result<Profile> {
+    match p {
+        Some(p) => Profile::load(p),
+        None => Ok(Profile::defaults()),
+    }
+}
+
 fn analyze(a: &AnalyzeArgs) -> Result<i32> {
+    if !(a.k > 0.0 && a.k.is_finite()) {
+        return Err(CwError::Usage(format!(
+            "--k must be a positive number, not {}",
+            a.k
+        )));
+    }
     let opt = Options {
-        necessary_k: None,
+        necessary_k: Some(a.k),
         channel: a.channel,
         tone_hz: a.tone,
     };
-    let rep = analyze_file(&a.file, &opt)?;
-    if let Some(p) = &a.csv {
-        write_atomic(p, present::csv::elements_csv(&rep).as_bytes(), a.force)?;
+    let prof = profile(a.profile.as_deref())?;
+    if a.files.len() > 1 || a.files[0].is_dir() {
+        if a.view.wanted() {
+            return Err(CwError::Usage(
+                "--plots and --report draw one recording; give a single file".into(),
+            ));
+        }
+        return analyze_many(a, &opt, &prof);
+    }
+    let file = &a.files[0];
+    let mut rep = analyze_file(file, &opt)?;
+    rep.verdicts = judge::judge(&rep.summary, &prof);
+    // Output files only when there was something to measure.
+    if rep.summary.keyed_signal_found {
+        if let Some(p) = &a.csv {
+            write_atomic(p, present::csv::elements_csv(&rep).as_bytes(), a.force)?;
+        }
+        crate::present::view_args::run(&a.view, &rep, a.force)?;
     }
     if a.json {
         emit(&format!("{}\n", present::json::to_json(&rep)));
@@ -85,9 +162,77 @@ fn analyze(a: &AnalyzeArgs) -> Result<i32> {
         emit(&present::text::render(&rep, a.elements));
     }
     if !rep.summary.keyed_signal_found {
-        eprintln!("cwaudit: {}: no keyed tone was found", a.file.display());
+        eprintln!("cwaudit: {}: no keyed tone was found", file.display());
         return Ok(2);
     }
+    Ok(judge::exit_code(&rep.verdicts))
+}
+
+fn analyze_many(a: &AnalyzeArgs, opt: &Options, prof: &Profile) -> Result<i32> {
+    if a.elements {
+        return Err(CwError::Usage(
+            "--elements lists the elements of one recording; give a single file".into(),
+        ));
+    }
+    if let Some(p) = &a.csv {
+        if p.exists() && !a.force {
+            return Err(CwError::output(
+                p,
+                "already exists; pass --force to replace it",
+            ));
+        }
+    }
+    let b = crate::batch::run(&a.files, opt, prof, true);
+    for e in &b.files {
+        if let Some(msg) = &e.error {
+            eprintln!("cwaudit: {msg}");
+        }
+    }
+    if let Some(p) = &a.csv {
+        // No table file when no recording could be measured (exit 2).
+        if b.exit_code() != 2 {
+            write_atomic(p, present::csv::batch_csv(&b).as_bytes(), a.force)?;
+        }
+    }
+    if a.json {
+        emit(&format!("{}\n", present::json::batch_json(&b)));
+    } else {
+        emit(&present::text::render_batch(&b));
+    }
+    Ok(b.exit_code())
+}
+
+fn compare(a: &CompareArgs) -> Result<i32> {
+    let opt = Options {
+        necessary_k: None,
+        channel: a.channel,
+        tone_hz: a.tone,
+    };
+    let prof = profile(a.profile.as_deref())?;
+    let (before, after) = rayon::join(
+        || analyze_file(&a.before, &opt),
+        || analyze_file(&a.after, &opt),
+    );
+    let (before, after) = (before?, after?);
+    for (r, p) in [(&before, &a.before), (&after, &a.after)] {
+        if !r.summary.keyed_signal_found {
+            return Err(CwError::input(
+                p,
+                "no keyed tone was found, so there is nothing to compare",
+            ));
+        }
+    }
+    let c = crate::compare::compare(before, after, &prof);
+    if a.json {
+        emit(&format!("{}\n", present::json::compare_json(&c)));
+    } else {
+        emit(&present::text::render_compare(&c));
+    }
+    Ok(c.exit_code())
+}
+
+fn limits(a: &LimitsArgs) -> Result<i32> {
+    emit(&profile(a.profile.as_deref())?.to_toml());
     Ok(0)
 }
 
@@ -116,6 +261,8 @@ pub fn main() -> i32 {
         Command::Demo(a) => crate::demo::run(a.dir.as_deref())
             .map(|_| 0)
             .map_err(|e| e.to_string()),
+        Command::Compare(a) => compare(a).map_err(|e| e.to_string()),
+        Command::Limits(a) => limits(a).map_err(|e| e.to_string()),
     };
     match res {
         Ok(c) => c,

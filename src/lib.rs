@@ -7,11 +7,14 @@
 
 pub mod accuracy;
 pub mod analysis;
+pub mod batch;
 pub mod cli;
+pub mod compare;
 pub mod demo;
 pub mod dsp;
 pub mod error;
 pub mod fsutil;
 pub mod input;
+pub mod judge;
 pub mod present;
 pub mod synth;

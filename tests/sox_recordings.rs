@@ -103,7 +103,9 @@ fn concat(parts: &[PathBuf], out: &Path) {
     sox(&a);
 }
 
-/// Runs `cwaudit analyze FILE --json`; asserts exit 0 and returns the report.
+/// Runs `cwaudit analyze FILE --json`; asserts it measured (exit 0, or 1 when
+/// a figure fails the built-in limits, as the chirp signal is meant to) and
+/// returns the report.
 fn analyze(path: &Path) -> Value {
     let out = Command::cargo_bin("cwaudit")
         .unwrap()
@@ -113,7 +115,11 @@ fn analyze(path: &Path) -> Value {
         .output()
         .unwrap();
     let stderr = String::from_utf8_lossy(&out.stderr);
-    assert_eq!(out.status.code(), Some(0), "stderr: {stderr}");
+    assert!(
+        matches!(out.status.code(), Some(0) | Some(1)),
+        "exit {:?}, stderr: {stderr}",
+        out.status.code()
+    );
     serde_json::from_slice(&out.stdout).expect("JSON report")
 }
 

@@ -127,7 +127,7 @@ pub fn analyze_file(path: &Path, opt: &Options) -> Result<Report> {
         tr.push(&mono);
     }
     tr.finish();
-    let mut rep = build_report(input, &tr, info.sample_rate_hz);
+    let mut rep = build_report(input, &mut tr, info.sample_rate_hz);
     if rep.summary.keyed_signal_found {
         add_spectral(&mut rep, path, channel, opt)?;
     }
@@ -161,6 +161,7 @@ fn no_signal(input: InputInfo, s: &SurveyResult) -> Report {
         elements: vec![],
         warnings,
         views: Default::default(),
+        verdicts: vec![],
     }
 }
 
@@ -261,7 +262,15 @@ fn add_spectral(rep: &mut Report, path: &Path, channel: usize, opt: &Options) ->
 }
 
 /// Turns a finished tracker into a report.
-pub fn build_report(input: InputInfo, tr: &ToneTracker, fs: u32) -> Report {
+pub fn build_report(input: InputInfo, tr: &mut ToneTracker, fs: u32) -> Report {
+    let mut traces = Vec::new();
+    let mut rises = Vec::new();
+    let mut falls = Vec::new();
+    for (t, r, f) in tr.take_views() {
+        traces.push(t);
+        rises.push(r);
+        falls.push(f);
+    }
     let els = tr.elements();
     let durations: Vec<f64> = els.iter().map(|e| e.end_s - e.start_s).collect();
     let gaps: Vec<Option<f64>> = (0..els.len())
@@ -291,7 +300,7 @@ pub fn build_report(input: InputInfo, tr: &ToneTracker, fs: u32) -> Report {
             level_dbfs: 10.0 * e.level_power.max(1e-30).log10(),
             frequency_hz: e.frequency_hz,
             gap_before_s: if i > 0 { gaps[i - 1] } else { None },
-            trace: e.trace.clone(),
+            trace: std::mem::take(&mut traces[i]),
         })
         .collect();
     let col = |f: &dyn Fn(&Element) -> Option<f64>| -> Vec<f64> {
@@ -350,13 +359,14 @@ pub fn build_report(input: InputInfo, tr: &ToneTracker, fs: u32) -> Report {
         elements,
         warnings: vec![],
         views: Default::default(),
+        verdicts: vec![],
     };
     rep.warnings = warnings::collect(&rep, tr);
     rep.views.edges = views::EdgesView {
         first_ms: tracker::EDGE_VIEW_FIRST_MS,
         step_ms: tracker::EDGE_VIEW_STEP_MS,
-        rises: els.iter().map(|e| e.rise_view.clone()).collect(),
-        falls: els.iter().map(|e| e.fall_view.clone()).collect(),
+        rises,
+        falls,
     };
     rep
 }

@@ -127,4 +127,7 @@ pub struct Report {
     /// Arrays behind the pictures (not written to JSON).
     #[serde(skip)]
     pub views: super::views::Views,
+    /// Verdicts of the limits on the summary figures (empty until judged).
+    #[serde(default)]
+    pub verdicts: Vec<crate::judge::Verdict>,
 }

@@ -54,6 +54,14 @@ pub struct TrackedElement {
     pub fall_view: Vec<f32>,
 }
 
+/// One element's trace and edge envelopes, taken out for the report.
+pub type ElementViews = (Vec<(f32, f32)>, Vec<f32>, Vec<f32>);
+
+/// Every how many trace points one is kept for the pictures and the
+/// mean-element chirp. 1 for now: coarser spacing changes the mean-element
+/// fit's model choice, which the accuracy grid has not been re-run for.
+pub const TRACE_KEEP_STRIDE: usize = 1;
+
 /// Grid of the edge pictures: from -15 ms to +15 ms of the 50 % instant.
 pub const EDGE_VIEW_FIRST_MS: f64 = -15.0;
 pub const EDGE_VIEW_STEP_MS: f64 = 0.25;
@@ -248,6 +256,20 @@ impl ToneTracker {
     }
     pub fn elements(&self) -> &[TrackedElement] {
         &self.elements
+    }
+    /// Takes the elements' traces and edge views out (for the report), so
+    /// they are not held twice.
+    pub fn take_views(&mut self) -> Vec<ElementViews> {
+        self.elements
+            .iter_mut()
+            .map(|e| {
+                (
+                    std::mem::take(&mut e.trace),
+                    std::mem::take(&mut e.rise_view),
+                    std::mem::take(&mut e.fall_view),
+                )
+            })
+            .collect()
     }
     /// Averaged rising and falling edges.
     pub fn mean_edges(&self) -> (&EdgeAverage, &EdgeAverage) {
@@ -467,6 +489,7 @@ impl ToneTracker {
                 .iter()
                 .zip(&r.trace.f)
                 .map(|(t, f)| (*t as f32, (f - settled) as f32))
+                .step_by(TRACE_KEEP_STRIDE)
                 .collect(),
             rise_view,
             fall_view,

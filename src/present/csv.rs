@@ -40,3 +40,56 @@ pub fn elements_csv(r: &Report) -> String {
     }
     String::from_utf8(w.into_inner().expect("in-memory write")).expect("CSV is UTF-8")
 }
+
+/// The summary table of many files as CSV, one row per file: `file`,
+/// `result` (pass, warn, fail or error), `error`, then every summary figure
+/// of the metric table (statistics by their median, other objects by their
+/// first member), then a `METRIC_verdict` column for each judged figure.
+pub fn batch_csv(b: &crate::batch::Batch) -> String {
+    use crate::judge::metrics::METRICS;
+    use crate::judge::Status;
+    let mut judged: Vec<String> = Vec::new();
+    for r in b.files.iter().filter_map(|e| e.report.as_ref()) {
+        for v in &r.verdicts {
+            if !judged.contains(&v.metric) {
+                judged.push(v.metric.clone());
+            }
+        }
+    }
+    let mut w = csv::Writer::from_writer(Vec::new());
+    let mut head: Vec<String> = vec!["file".into(), "result".into(), "error".into()];
+    head.extend(METRICS.iter().map(|m| m.name.to_string()));
+    head.extend(judged.iter().map(|m| format!("{m}_verdict")));
+    w.write_record(&head).expect("in-memory write");
+    for e in &b.files {
+        let result = match e.result {
+            Some(Status::Fail) => "fail",
+            Some(Status::Warn) => "warn",
+            Some(_) => "pass",
+            None => "error",
+        };
+        let mut row: Vec<String> = vec![
+            e.path.clone(),
+            result.into(),
+            e.error.clone().unwrap_or_default(),
+        ];
+        let json = e
+            .report
+            .as_ref()
+            .map(|r| serde_json::to_value(&r.summary).expect("plain data"));
+        for m in METRICS {
+            let v = json.as_ref().and_then(|j| m.read(j, None));
+            row.push(v.map_or(String::new(), |x| format!("{x:.6}")));
+        }
+        for name in &judged {
+            let s = e
+                .report
+                .as_ref()
+                .and_then(|r| r.verdicts.iter().find(|v| v.metric == *name))
+                .map_or("", |v| v.status.as_str());
+            row.push(s.to_string());
+        }
+        w.write_record(&row).expect("in-memory write");
+    }
+    String::from_utf8(w.into_inner().expect("in-memory write")).expect("CSV is UTF-8")
+}

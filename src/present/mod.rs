@@ -2,5 +2,8 @@
 //! Nothing here measures anything.
 
 pub mod csv;
+pub mod html;
 pub mod json;
+pub mod plots;
 pub mod text;
+pub mod view_args;
