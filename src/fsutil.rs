@@ -26,6 +26,13 @@ pub fn write_atomic(path: &Path, bytes: &[u8], overwrite: bool) -> Result<()> {
     tmp.write_all(bytes)
         .and_then(|_| tmp.flush())
         .map_err(|e| CwError::output(path, format!("cannot be written ({e})")))?;
+    // Outputs are ordinary files: readable by others like anything else the
+    // user writes (the temporary file starts private).
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::PermissionsExt;
+        let _ = std::fs::set_permissions(tmp.path(), std::fs::Permissions::from_mode(0o644));
+    }
     let res = if overwrite {
         tmp.persist(path).map(|_| ())
     } else {
