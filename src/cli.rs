@@ -52,12 +52,8 @@ pub struct AnalyzeArgs {
     /// folders of them. More than one, or a folder: one summary table.
     #[arg(required = true, value_name = "FILE")]
     pub files: Vec<PathBuf>,
-    /// Channel to measure, from 1; default: the one with the strongest keyed tone.
-    #[arg(long, value_name = "N")]
-    pub channel: Option<u16>,
-    /// Pitch of the tone to measure, Hz; default: the strongest keyed tone.
-    #[arg(long, value_name = "HZ")]
-    pub tone: Option<f64>,
+    #[command(flatten)]
+    pub pick: ToneArgs,
     /// Print one JSON document instead of the text report.
     #[arg(long)]
     pub json: bool,
@@ -83,18 +79,35 @@ pub struct AnalyzeArgs {
     pub force: bool,
 }
 
+/// Which channel and tone to measure (shared by `analyze` and `compare`).
+#[derive(Args, Debug)]
+pub struct ToneArgs {
+    /// Channel to measure, from 1; default: the one with the strongest keyed tone.
+    #[arg(long, value_name = "N")]
+    pub channel: Option<u16>,
+    /// Pitch of the tone to measure, Hz; default: the strongest keyed tone.
+    #[arg(long, value_name = "HZ")]
+    pub tone: Option<f64>,
+}
+
+impl ToneArgs {
+    fn options(&self, necessary_k: Option<f64>) -> Options {
+        Options {
+            necessary_k,
+            channel: self.channel,
+            tone_hz: self.tone,
+        }
+    }
+}
+
 #[derive(Args, Debug)]
 pub struct CompareArgs {
     /// The recording before the change.
     pub before: PathBuf,
     /// The recording after the change.
     pub after: PathBuf,
-    /// Channel to measure in both, from 1; default: the strongest keyed tone.
-    #[arg(long, value_name = "N")]
-    pub channel: Option<u16>,
-    /// Pitch of the tone to measure in both, Hz; default: the strongest keyed tone.
-    #[arg(long, value_name = "HZ")]
-    pub tone: Option<f64>,
+    #[command(flatten)]
+    pub pick: ToneArgs,
     /// Print one JSON document instead of the text.
     #[arg(long)]
     pub json: bool,
@@ -132,11 +145,7 @@ fn analyze(a: &AnalyzeArgs) -> Result<i32> {
             a.k
         )));
     }
-    let opt = Options {
-        necessary_k: Some(a.k),
-        channel: a.channel,
-        tone_hz: a.tone,
-    };
+    let opt = a.pick.options(Some(a.k));
     let prof = profile(a.profile.as_deref())?;
     if a.files.len() > 1 || a.files[0].is_dir() {
         if a.view.wanted() {
@@ -203,11 +212,7 @@ fn analyze_many(a: &AnalyzeArgs, opt: &Options, prof: &Profile) -> Result<i32> {
 }
 
 fn compare(a: &CompareArgs) -> Result<i32> {
-    let opt = Options {
-        necessary_k: None,
-        channel: a.channel,
-        tone_hz: a.tone,
-    };
+    let opt = a.pick.options(None);
     let prof = profile(a.profile.as_deref())?;
     let (before, after) = rayon::join(
         || analyze_file(&a.before, &opt),
