@@ -71,6 +71,27 @@ pub struct AnalyzeArgs {
     /// 5 for fading circuits (default), 3 for non-fading.
     #[arg(long, value_name = "K", default_value_t = crate::analysis::spectral::DEFAULT_K)]
     pub k: f64,
+    /// The recording is the rig's own audio and its sidetone is at HZ:
+    /// report the sidetone-to-signal ratio and the receive muting depth.
+    #[arg(long, value_name = "HZ")]
+    pub sidetone: Option<f64>,
+    /// With --sidetone: take the received signal's level from this recording
+    /// (its strongest tone) instead of another tone in FILE.
+    #[arg(
+        long,
+        value_name = "FILE",
+        requires = "sidetone",
+        conflicts_with = "reference_dbfs"
+    )]
+    pub reference: Option<PathBuf>,
+    /// With --sidetone: the received signal's level, dBFS.
+    #[arg(
+        long,
+        value_name = "DBFS",
+        requires = "sidetone",
+        allow_negative_numbers = true
+    )]
+    pub reference_dbfs: Option<f64>,
     /// Pictures and the HTML report.
     #[command(flatten)]
     pub view: crate::present::view_args::ViewArgs,
@@ -96,6 +117,7 @@ impl ToneArgs {
             necessary_k,
             channel: self.channel,
             tone_hz: self.tone,
+            ..Options::default()
         }
     }
 }
@@ -114,6 +136,10 @@ pub struct CompareArgs {
     /// Limits to judge by (TOML); default: the built-in limits.
     #[arg(long, value_name = "FILE")]
     pub profile: Option<PathBuf>,
+    /// BEFORE was recorded with receive muting off and AFTER with it on (the
+    /// rig's own audio, same tone): also report the muting depth.
+    #[arg(long)]
+    pub muting: bool,
 }
 
 #[derive(Args, Debug)]
@@ -145,7 +171,17 @@ fn analyze(a: &AnalyzeArgs) -> Result<i32> {
             a.k
         )));
     }
-    let opt = a.pick.options(Some(a.k));
+    let mut opt = a.pick.options(Some(a.k));
+    if let Some(st) = a.sidetone {
+        if !(st > 0.0 && st.is_finite()) {
+            return Err(CwError::Usage(format!(
+                "--sidetone must be a pitch in Hz above 0, not {st}"
+            )));
+        }
+    }
+    opt.sidetone_hz = a.sidetone;
+    opt.reference = a.reference.clone();
+    opt.reference_dbfs = a.reference_dbfs;
     let prof = profile(a.profile.as_deref())?;
     if a.files.len() > 1 || a.files[0].is_dir() {
         if a.view.wanted() {
@@ -227,7 +263,10 @@ fn compare(a: &CompareArgs) -> Result<i32> {
             ));
         }
     }
-    let c = crate::compare::compare(before, after, &prof);
+    let mut c = crate::compare::compare(before, after, &prof);
+    if a.muting {
+        c.muting = crate::compare::muting_across(&c.before, &c.after);
+    }
     if a.json {
         emit(&format!("{}\n", present::json::compare_json(&c)));
     } else {

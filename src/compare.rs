@@ -205,6 +205,31 @@ pub struct Comparison {
     pub after: Report,
     #[serde(serialize_with = "ordered_map")]
     pub deltas: Vec<Delta>,
+    /// Receive muting across the two recordings (`compare --muting`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub muting: Option<MutingAcross>,
+}
+
+/// Muting depth from a recording with muting off (before) and one with it
+/// on (after): the same tone's key-down level difference.
+#[derive(Clone, Debug, Serialize, PartialEq)]
+pub struct MutingAcross {
+    pub tone_hz: f64,
+    pub muting_off_dbfs: f64,
+    pub muting_on_dbfs: f64,
+    /// Off less on, dB.
+    pub depth_db: f64,
+}
+
+/// The muting depth across two recordings of the same tone, if both have it.
+pub fn muting_across(off: &Report, on: &Report) -> Option<MutingAcross> {
+    let (a, b) = (off.summary.level_dbfs?, on.summary.level_dbfs?);
+    Some(MutingAcross {
+        tone_hz: off.summary.tone_hz?,
+        muting_off_dbfs: a,
+        muting_on_dbfs: b,
+        depth_db: a - b,
+    })
 }
 
 fn ordered_map<S: Serializer>(d: &[Delta], s: S) -> std::result::Result<S::Ok, S::Error> {
@@ -323,6 +348,7 @@ pub fn compare(mut before: Report, mut after: Report, profile: &Profile) -> Comp
         before,
         after,
         deltas,
+        muting: None,
     }
 }
 

@@ -1,10 +1,13 @@
 //! Analysis: runs the streaming pipeline over a source and turns what the
 //! DSP measured into a [`Report`].
 
+pub mod carrier;
 pub mod element;
+pub mod muting;
 pub mod report;
 pub mod spectral;
 pub mod timing;
+pub mod tones;
 pub mod tracker;
 pub mod views;
 pub mod warnings;
@@ -34,6 +37,13 @@ pub struct Options {
     pub tone_hz: Option<f64>,
     /// K of the necessary bandwidth B K (default 5, fading circuits).
     pub necessary_k: Option<f64>,
+    /// Pitch of the sidetone, Hz: asks for the sidetone-to-signal ratio and
+    /// the receive muting depth (the recording is the rig's own audio).
+    pub sidetone_hz: Option<f64>,
+    /// The received signal's level for the ratio: a recording of it...
+    pub reference: Option<std::path::PathBuf>,
+    /// ...or a level in dBFS.
+    pub reference_dbfs: Option<f64>,
 }
 
 /// Which tone to follow, from the survey and the options.
@@ -118,18 +128,22 @@ pub fn analyze_file(path: &Path, opt: &Options) -> Result<Report> {
         return Ok(no_signal(input, &s));
     };
 
-    let mut tr = ToneTracker::new(info.sample_rate_hz, cand.frequency_hz);
+    let others = tones::others(&s, &cand);
+    let mut set = tones::ToneSet::new(info.sample_rate_hz, &cand, &others);
     let mut src = WavSource::open(path)?;
     let mut mono = Vec::with_capacity(BLOCK_FRAMES);
     while src.read_frames(&mut buf, BLOCK_FRAMES)? > 0 {
         mono.clear();
         mono.extend(buf.iter().skip(channel).step_by(nch));
-        tr.push(&mono);
+        set.push(&mono);
     }
-    tr.finish();
-    let mut rep = build_report(input, &mut tr, info.sample_rate_hz);
+    set.finish();
+    let (mut rep, side) = set.reports(input, info.sample_rate_hz);
     if rep.summary.keyed_signal_found {
         add_spectral(&mut rep, path, channel, opt)?;
+    }
+    if let Some(st) = opt.sidetone_hz {
+        tones::sidetone(&mut rep, &side, st, opt, path, channel)?;
     }
     Ok(rep)
 }
@@ -158,6 +172,7 @@ fn no_signal(input: InputInfo, s: &SurveyResult) -> Report {
             snr_bandwidth_hz: SNR_BANDWIDTH_HZ,
             ..Default::default()
         },
+        tones: vec![],
         elements: vec![],
         warnings,
         views: Default::default(),
@@ -250,6 +265,12 @@ fn add_spectral(rep: &mut Report, path: &Path, channel: usize, opt: &Options) ->
         elements: &els,
         unit_s: s.unit_ms.map(|u| u / 1e3),
         k: opt.necessary_k.unwrap_or(spectral::DEFAULT_K),
+        others_hz: &rep
+            .tones
+            .iter()
+            .filter(|t| !t.main)
+            .map(|t| t.frequency_hz)
+            .collect::<Vec<f64>>(),
     };
     let out = spectral::spectral_pass(&inp)?;
     rep.views.spectrum = out.spectrum;
@@ -349,6 +370,10 @@ pub fn build_report(input: InputInfo, tr: &mut ToneTracker, fs: u32) -> Report {
             - (band.lo_hz - band.lo_rolloff_hz / 2.0),
         rise_floor_ms: rise_floor_s(fs, tr.center_hz()) * 1e3,
         baseband_rate_hz: dc.out_rate_hz(),
+        sidetone: None,
+        rx_muting_db: None,
+        rx_muting: None,
+        carrier: carrier::measure(tr, &elements, level_dbfs.map(|l| 10f64.powf(l / 10.0))),
         spectral: Default::default(),
     };
     let mut rep = Report {
@@ -356,6 +381,7 @@ pub fn build_report(input: InputInfo, tr: &mut ToneTracker, fs: u32) -> Report {
         version: env!("CARGO_PKG_VERSION").into(),
         input,
         summary,
+        tones: vec![],
         elements,
         warnings: vec![],
         views: Default::default(),

@@ -110,9 +110,53 @@ pub struct Summary {
     pub rise_floor_ms: f64,
     /// Sample rate of the complex baseband the elements are measured on, Hz.
     pub baseband_rate_hz: f64,
+    /// Sidetone against a received signal (with `--sidetone`).
+    pub sidetone: Option<SidetoneFigures>,
+    /// Receiver muting: background level (all but the sidetone's pitch) in
+    /// key-up less that in key-down, dB (with `--sidetone`).
+    pub rx_muting_db: Option<f64>,
+    /// What `rx_muting_db` was computed from.
+    pub rx_muting: Option<super::muting::MutingFigures>,
+    /// Backwave, hum and drift.
+    #[serde(flatten)]
+    pub carrier: super::carrier::CarrierFigures,
     /// Key clicks and bandwidths from the spectral pass.
     #[serde(flatten)]
     pub spectral: super::spectral::SpectralFigures,
+}
+
+/// One tone found in the recording.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct ToneInfo {
+    pub frequency_hz: f64,
+    /// Key-down level for a keyed tone (median over its elements, noise
+    /// removed), the steady level for a steady one, dBFS.
+    pub level_dbfs: Option<f64>,
+    pub keyed: bool,
+    /// Elements measured on this tone (0 for a steady tone).
+    pub elements: usize,
+    /// True for the tone that `summary` and `elements` describe.
+    pub main: bool,
+    /// Keying speed of this tone, WPM.
+    pub wpm: Option<f64>,
+    /// Median rise and fall times of this tone, ms.
+    pub rise_ms: Option<f64>,
+    pub fall_ms: Option<f64>,
+}
+
+/// Sidetone level against a received signal's.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct SidetoneFigures {
+    /// Sidetone minus signal, dB.
+    pub ratio_db: f64,
+    pub sidetone_dbfs: f64,
+    pub signal_dbfs: f64,
+    pub sidetone_hz: f64,
+    /// Pitch of the signal (null when its level was given as a number).
+    pub signal_hz: Option<f64>,
+    /// Where the signal's level came from: "tone" (another tone in this
+    /// recording), "reference file" or "given level".
+    pub signal_source: String,
 }
 
 /// The whole report for one recording.
@@ -122,6 +166,9 @@ pub struct Report {
     pub version: String,
     pub input: InputInfo,
     pub summary: Summary,
+    /// Every tone found in the analysed channel, strongest first.
+    #[serde(default)]
+    pub tones: Vec<ToneInfo>,
     pub elements: Vec<Element>,
     pub warnings: Vec<String>,
     /// Arrays behind the pictures (not written to JSON).

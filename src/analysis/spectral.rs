@@ -83,6 +83,9 @@ pub struct SpectralInput<'a> {
     /// PARIS unit, s (for the necessary bandwidth).
     pub unit_s: Option<f64>,
     pub k: f64,
+    /// Other tones in the recording, Hz: their bins are left out of the
+    /// figures (taken as noise), so they do not widen this tone's bandwidths.
+    pub others_hz: &'a [f64],
 }
 
 /// Welch accumulator for one frame length.
@@ -352,6 +355,18 @@ pub fn spectral_pass(inp: &SpectralInput) -> Result<SpectralOutput> {
         })
         .collect();
     let have_noise = w_noise.frames > 0;
+    let s_shown = s_main.clone();
+    let mut s_main = s_main;
+    let reach = crate::dsp::downconvert::NOTCH_ZERO_HZ + crate::dsp::downconvert::NOTCH_RAMP_HZ;
+    for (k, v) in s_main.iter_mut().enumerate() {
+        if inp
+            .others_hz
+            .iter()
+            .any(|&f| (k as f64 * bin - f).abs() < reach)
+        {
+            *v = if have_noise { noise_on_main[k] } else { 0.0 };
+        }
+    }
     let k_lo = (((inp.tone_hz - REGION_HALF_HZ).max(bin)) / bin).ceil() as usize;
     let k_hi = ((((inp.tone_hz + REGION_HALF_HZ).min(fsf / 2.0 - bin)) / bin).floor() as usize)
         .min(s_main.len() - 1);
@@ -520,7 +535,7 @@ pub fn spectral_pass(inp: &SpectralInput) -> Result<SpectralOutput> {
             .collect(),
         rbw_hz: rbw,
     };
-    let spec_view = to_view(&s_main, rbw);
+    let spec_view = to_view(&s_shown, rbw);
     let noise_view = if have_noise {
         to_view(&noise_on_main, rbw)
     } else {

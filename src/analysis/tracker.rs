@@ -12,6 +12,7 @@ use rustfft::num_complex::{Complex32, Complex64};
 
 use super::element::{measure, Context, Measured};
 use crate::dsp::downconvert::{Band, Downconverter};
+use crate::dsp::hum::HumAcc;
 use crate::dsp::levels::{LevelHistogram, StateLevels};
 use crate::dsp::segment::{Mark, Segmenter, OFF_FRACTION, ON_FRACTION};
 
@@ -70,7 +71,10 @@ pub const EDGE_VIEW_POINTS: usize = 121;
 pub const EDGE_VIEW_MAX: usize = 400;
 
 /// Noise power from key-up gaps: variance about the mean of 10 ms blocks,
-/// which leaves a steady carrier (backwave) out of the noise.
+/// which leaves a steady carrier (backwave) out of the noise. The blocks'
+/// means are the backwave: a carrier coherent over 10 ms, whose power is
+/// |mean|^2 less the noise's share, var(mean) = noise·fs/(Bn·n) for noise of
+/// noise-equivalent bandwidth Bn sampled at fs.
 #[derive(Clone, Debug, Default)]
 struct NoiseAcc {
     block: Vec<Complex32>,
@@ -79,6 +83,11 @@ struct NoiseAcc {
     dof: f64,
     up_power: f64,
     up_count: f64,
+    /// fs / Bn of the baseband.
+    mean_var_factor: f64,
+    coherent: f64,
+    coherent_bias: f64,
+    coherent_blocks: f64,
 }
 
 impl NoiseAcc {
@@ -99,17 +108,33 @@ impl NoiseAcc {
                 .map(|v| Complex64::new(v.re as f64, v.im as f64))
                 .sum::<Complex64>()
                 / n as f64;
-            self.sum_dev += self
+            let dev = self
                 .block
                 .iter()
                 .map(|v| (Complex64::new(v.re as f64, v.im as f64) - m).norm_sqr())
                 .sum::<f64>();
+            self.sum_dev += dev;
             self.dof += (n - 1) as f64;
+            self.coherent += m.norm_sqr();
+            self.coherent_bias += dev / (n - 1) as f64 * self.mean_var_factor / n as f64;
+            self.coherent_blocks += 1.0;
         }
         self.block.clear();
     }
     fn power(&self) -> Option<f64> {
         (self.dof >= 200.0).then(|| self.sum_dev / self.dof)
+    }
+    /// Key-up carrier power with the noise's share removed, and the smallest
+    /// power that stands out of the noise (three standard errors).
+    fn carrier(&self) -> Option<(f64, f64)> {
+        if self.coherent_blocks < 10.0 {
+            return None;
+        }
+        let b = self.coherent_blocks;
+        let bias = self.coherent_bias / b;
+        // With noise only, |mean|^2 is exponential: its standard deviation is
+        // its mean, so the average of B blocks has standard error bias/sqrt(B).
+        Some((self.coherent / b - bias, 3.0 * bias / b.sqrt()))
     }
 }
 
@@ -194,11 +219,21 @@ pub struct ToneTracker {
     cut_open: bool,
     mean_rise: EdgeAverage,
     mean_fall: EdgeAverage,
+    hum: HumAcc,
 }
+
+/// Settled key-down used for hum: this far inside the 90 % points, s.
+const HUM_GUARD_S: f64 = 0.002;
 
 impl ToneTracker {
     pub fn new(fs: u32, center_hz: f64) -> ToneTracker {
-        let dc = Downconverter::new(fs, Band::envelope(fs as f64, center_hz));
+        Self::with_band(fs, Band::envelope(fs as f64, center_hz))
+    }
+
+    /// A tracker whose analysis band is `band` (e.g. with other tones notched out).
+    pub fn with_band(fs: u32, band: Band) -> ToneTracker {
+        let center_hz = band.center_hz;
+        let dc = Downconverter::new(fs, band);
         let fs_d = dc.out_rate_hz();
         let win = ((DETECT_WINDOW_S * fs_d).round() as usize) | 1;
         let s = |x: f64| (x * fs_d).round() as u64;
@@ -224,8 +259,10 @@ impl ToneTracker {
             last_down: None,
             noise: NoiseAcc {
                 block_len: s(0.01) as usize,
+                mean_var_factor: fs_d / dc.noise_bandwidth_hz(),
                 ..Default::default()
             },
+            hum: HumAcc::new(fs_d),
             out: Vec::new(),
             elements: Vec::new(),
             unmeasured: 0,
@@ -249,6 +286,15 @@ impl ToneTracker {
     /// Noise power per baseband sample (full envelope band), if measured.
     pub fn noise_power(&self) -> Option<f64> {
         self.noise.power()
+    }
+    /// Key-up carrier (backwave) power per baseband sample with the noise
+    /// removed, and the smallest such power the recording resolves.
+    pub fn key_up_carrier(&self) -> Option<(f64, f64)> {
+        self.noise.carrier()
+    }
+    /// Hum and ripple accumulated over the elements' settled key-down.
+    pub fn hum(&self) -> &HumAcc {
+        &self.hum
     }
     /// Mean baseband power during key-up (noise plus any backwave).
     pub fn key_up_power(&self) -> Option<f64> {
@@ -439,6 +485,13 @@ impl ToneTracker {
             self.mean_fall.add(&z, r.t50_fall);
         }
         let t0 = self.dc.time_of(a);
+        if let (Some(r9), Some(f9), false, false) = (r.t90_rise, r.t90_fall, cut, self.cut_open) {
+            let g = HUM_GUARD_S * self.fs_d;
+            let (i, j) = ((r9 + g).ceil().max(0.0) as usize, (f9 - g).floor() as usize);
+            if j > i && j < z.len() {
+                self.hum.add(&z[i..j], t0 + i as f64 / self.fs_d);
+            }
+        }
         let ts = |i: f64| t0 + i / self.fs_d;
         let keep_view = self.elements.len() < EDGE_VIEW_MAX;
         let high = ctx.levels.high.max(1e-12);

@@ -24,6 +24,16 @@ pub const HALF_BAND_HZ: f64 = 2000.0;
 /// Raised-cosine roll-off beyond the flat band, Hz (-6 dB at 2250 Hz).
 pub const ROLLOFF_HZ: f64 = 500.0;
 
+/// Most other tones one band can notch out.
+pub const MAX_NOTCHES: usize = 7;
+/// A notch is zero within this distance of the other tone, Hz...
+pub const NOTCH_ZERO_HZ: f64 = 30.0;
+/// ...and rises to full gain over this raised-cosine ramp beyond it, Hz.
+pub const NOTCH_RAMP_HZ: f64 = 50.0;
+/// Block length when the band has notches, s: long enough that the
+/// filter (a quarter of the block) resolves a notch of +-80 Hz.
+const NOTCHED_BLOCK_S: f64 = 0.6;
+
 /// Shape of the analytic band, in absolute audio frequency.
 #[derive(Clone, Copy, Debug)]
 pub struct Band {
@@ -34,6 +44,9 @@ pub struct Band {
     /// Roll-off widths below `lo_hz` and above `hi_hz`.
     pub lo_rolloff_hz: f64,
     pub hi_rolloff_hz: f64,
+    /// Other tones notched out of the band (absolute Hz), `notch_count` used.
+    pub notches: [f64; MAX_NOTCHES],
+    pub notch_count: usize,
 }
 
 impl Band {
@@ -53,7 +66,36 @@ impl Band {
                 dc_roll
             },
             hi_rolloff_hz: ROLLOFF_HZ,
+            notches: [0.0; MAX_NOTCHES],
+            notch_count: 0,
         }
+    }
+
+    /// This band with notches at the other tones that fall inside it (at
+    /// most `MAX_NOTCHES`, nearest first), so a second signal in the
+    /// passband does not add to this tone's envelope.
+    pub fn with_notches(mut self, others_hz: &[f64]) -> Band {
+        let reach = NOTCH_ZERO_HZ + NOTCH_RAMP_HZ;
+        let mut near: Vec<f64> = others_hz
+            .iter()
+            .copied()
+            .filter(|&f| f > self.lo_hz - self.lo_rolloff_hz - reach)
+            .filter(|&f| f < self.hi_hz + self.hi_rolloff_hz + reach)
+            .collect();
+        near.sort_by(|a, b| {
+            (a - self.center_hz)
+                .abs()
+                .total_cmp(&(b - self.center_hz).abs())
+        });
+        near.truncate(MAX_NOTCHES);
+        self.notch_count = near.len();
+        self.notches[..near.len()].copy_from_slice(&near);
+        self
+    }
+
+    /// The notched-out tones.
+    pub fn notched(&self) -> &[f64] {
+        &self.notches[..self.notch_count]
     }
 
     /// A narrow band around a tone (for separating tones), +-`half` Hz.
@@ -64,25 +106,42 @@ impl Band {
             hi_hz: center_hz + half,
             lo_rolloff_hz: rolloff,
             hi_rolloff_hz: rolloff,
+            notches: [0.0; MAX_NOTCHES],
+            notch_count: 0,
         }
     }
 
     fn desired(&self, f: f64) -> f64 {
         let rc = |x: f64| 0.5 + 0.5 * (PI * x.clamp(0.0, 1.0)).cos();
-        if f < self.lo_hz {
+        let edge = if f < self.lo_hz {
             rc((self.lo_hz - f) / self.lo_rolloff_hz)
         } else if f > self.hi_hz {
             rc((f - self.hi_hz) / self.hi_rolloff_hz)
         } else {
             1.0
-        }
+        };
+        self.notched().iter().fold(edge, |g, &n| {
+            let d = (f - n).abs() - NOTCH_ZERO_HZ;
+            if d <= 0.0 {
+                0.0
+            } else {
+                g * (1.0 - rc(d / NOTCH_RAMP_HZ))
+            }
+        })
     }
 }
 
 /// Block sizes for a sample rate: FFT length about 85 ms, decimation to about
 /// 10-16 kHz (a power of two), filter length a quarter of the FFT.
 pub fn plan_sizes(fs: u32) -> (usize, usize, usize) {
-    let n = ((fs as f64 * 0.085) as usize).next_power_of_two().max(256);
+    plan_sizes_for(fs, 0.085)
+}
+
+/// Block sizes for a block of about `block_s` seconds.
+fn plan_sizes_for(fs: u32, block_s: f64) -> (usize, usize, usize) {
+    let n = ((fs as f64 * block_s) as usize)
+        .next_power_of_two()
+        .max(256);
     let mut d = 1;
     while fs as usize / (2 * d) >= 10_000 && d * 2 * 16 <= n {
         d *= 2;
@@ -119,7 +178,11 @@ pub struct Downconverter {
 
 impl Downconverter {
     pub fn new(fs: u32, band: Band) -> Downconverter {
-        let (n, d, m) = plan_sizes(fs);
+        let (n, d, m) = if band.notch_count > 0 {
+            plan_sizes_for(fs, NOTCHED_BLOCK_S)
+        } else {
+            plan_sizes(fs)
+        };
         let fsf = fs as f64;
         let nd = n / d;
         let hop = n - (m - 1);

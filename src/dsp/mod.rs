@@ -8,6 +8,7 @@
 pub mod downconvert;
 pub mod edges;
 pub mod freq;
+pub mod hum;
 pub mod levels;
 pub mod segment;
 pub mod stats;

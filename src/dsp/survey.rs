@@ -59,6 +59,11 @@ pub struct SurveyResult {
     pub spectra: Vec<Vec<f64>>,
 }
 
+/// A tone candidate's on-power stands this far above the median bin, dB.
+/// Averaging hundreds of frames makes a noise bin's mean steady to a
+/// fraction of a dB, so 8 dB is far outside what noise reaches.
+const PEAK_MARGIN_DB: f64 = 8.0;
+
 /// Full-scale limit at which a sample counts as clipped.
 const CLIP_LEVEL: f32 = 0.9999;
 
@@ -175,27 +180,38 @@ impl Survey {
                 spectra.push(mean);
                 continue;
             }
-            let mut band: Vec<f64> = mean[lo..hi].to_vec();
+            // Peaks are looked for in the on-power spectrum E[p^2]/E[p] per
+            // bin: a keyed tone stands out of it by its key-down power, not
+            // by its power averaged with the key-up time. Noise bins read
+            // twice their mean there (exponential frame power).
+            let on: Vec<f64> = ch
+                .sum_p
+                .iter()
+                .zip(&ch.sum_p2)
+                .map(|(p, p2)| if *p > 0.0 { p2 / p } else { 0.0 })
+                .collect();
+            let mut band: Vec<f64> = on[lo..hi].to_vec();
             band.sort_by(|a, b| a.total_cmp(b));
             let floor = band[band.len() / 2].max(1e-30);
             let mut peaks: Vec<usize> = (lo..hi)
                 .filter(|&k| {
-                    mean[k] > floor * 10f64.powf(1.2)
-                        && mean[k] >= mean[k - 1]
-                        && mean[k] > mean[k + 1]
-                        && mean[k] >= mean[k - 2]
-                        && mean[k] > mean[k + 2]
+                    on[k] > floor * 10f64.powf(PEAK_MARGIN_DB / 10.0)
+                        && on[k] >= on[k - 1]
+                        && on[k] > on[k + 1]
                 })
                 .collect();
-            peaks.sort_by(|&a, &b| mean[b].total_cmp(&mean[a]));
+            peaks.sort_by(|&a, &b| on[b].total_cmp(&on[a]));
             let mut kept: Vec<usize> = Vec::new();
             for k in peaks {
-                // A Hann main lobe spans +-2 bins; sidelobes of a strong peak are
-                // at least 31 dB down, so anything weaker than that near a kept
-                // peak is part of it.
-                if kept.iter().any(|&q| {
-                    q.abs_diff(k) <= 3 || (q.abs_diff(k) <= 8 && mean[k] < mean[q] * 1e-3)
-                }) {
+                // A Hann main lobe spans +-2 bins (two peaks that close are one
+                // tone); beyond it the sidelobes of a
+                // stronger peak fall as 1/(pi d (d^2 - 1)) in amplitude at d
+                // bins (Harris 1978). A weaker peak within 10 dB of that
+                // envelope is taken as part of the stronger one.
+                if kept
+                    .iter()
+                    .any(|&q| q.abs_diff(k) <= 2 || on[k] < on[q] * sidelobe(q.abs_diff(k)))
+                {
                     continue;
                 }
                 kept.push(k);
@@ -216,7 +232,7 @@ impl Survey {
                 // for the Hann scalloping at the interpolated offset.
                 let e_p = ch.sum_p[k] / nf;
                 let e_p2 = ch.sum_p2[k] / nf;
-                let on = if e_p > 0.0 { e_p2 / e_p } else { 0.0 };
+                let on_k = if e_p > 0.0 { e_p2 / e_p } else { 0.0 };
                 let duty = if e_p2 > 0.0 { e_p * e_p / e_p2 } else { 0.0 };
                 let cv = if e_p > 0.0 {
                     ((e_p2 - e_p * e_p).max(0.0)).sqrt() / e_p
@@ -228,10 +244,10 @@ impl Survey {
                     channel: c,
                     frequency_hz: (k as f64 + delta) * bin_hz,
                     mean_power: e_p / norm,
-                    on_power: on / norm,
+                    on_power: on_k / norm,
                     duty,
                     keyed: cv > 0.3 && duty < 0.9,
-                    prominence_db: 10.0 * (mean[k] / floor).log10(),
+                    prominence_db: 10.0 * (on[k] / floor).log10(),
                 });
             }
             spectra.push(mean);
@@ -245,6 +261,13 @@ impl Survey {
             spectra,
         }
     }
+}
+
+/// Power of a Hann window's sidelobe envelope `d` bins from the peak,
+/// relative to the peak, with a 10 dB margin.
+fn sidelobe(d: usize) -> f64 {
+    let d = d.max(2) as f64;
+    10.0 / (std::f64::consts::PI * d * (d * d - 1.0)).powi(2)
 }
 
 /// Amplitude response of a Hann window's DFT at `d` bins from the tone,

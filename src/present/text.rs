@@ -175,6 +175,99 @@ fn figure_table(o: &mut String, r: &Report) {
     }
 }
 
+/// Tones, backwave, hum, drift, sidetone and muting, one line each.
+fn carrier_lines(o: &mut String, r: &Report) {
+    let s = &r.summary;
+    let c = &s.carrier;
+    let _ = writeln!(o);
+    if r.tones.len() > 1 {
+        let _ = writeln!(o, "   tones in this channel (strongest first):");
+        for t in &r.tones {
+            let what = if t.keyed {
+                format!("keyed, {} elements", t.elements)
+            } else {
+                "steady".to_string()
+            };
+            let _ = writeln!(
+                o,
+                "     {:>9.1} Hz  {:>8}  {what}{}",
+                t.frequency_hz,
+                num(t.level_dbfs, 1, " dBFS"),
+                if t.main { "  <- measured above" } else { "" }
+            );
+        }
+    }
+    match (c.backwave_db, c.backwave_floor_db) {
+        (Some(b), _) => {
+            let _ = writeln!(o, "   backwave: {b:.1} dB below key-down carrier");
+        }
+        (None, Some(f)) => {
+            let _ = writeln!(
+                o,
+                "   backwave: none found; it is below {f:.1} dB, the floor this recording resolves"
+            );
+        }
+        _ => {}
+    }
+    if let Some(h) = &c.hum {
+        let am = h
+            .am_percent
+            .map_or(format!("AM below {:.2} %", h.am_floor_percent), |a| {
+                format!("AM {a:.2} %")
+            });
+        let fm = h
+            .fm_hz
+            .map_or(format!("FM below {:.2} Hz", h.fm_floor_hz), |f| {
+                format!("FM {f:.2} Hz peak")
+            });
+        if h.am_percent.is_none() && h.fm_hz.is_none() {
+            let _ = writeln!(
+                o,
+                "   hum: none found ({am}, {fm} at every mains frequency tried)"
+            );
+        } else {
+            let _ = writeln!(
+                o,
+                "   hum at {:.0} Hz ({:.0} Hz mains family): {am}, {fm}",
+                h.frequency_hz, h.mains_hz
+            );
+        }
+    }
+    if let Some(d) = c.drift_hz_per_min {
+        let _ = writeln!(
+            o,
+            "   drift: {d:+.2} Hz/min (straight-line fit); last tenth against first: {}; element pitch p10-p90 spread {}",
+            num(c.drift_total_hz, 1, " Hz"),
+            num(c.pitch_spread_hz.map(|p| p.p90 - p.p10), 1, " Hz")
+        );
+    }
+    if let Some(st) = &s.sidetone {
+        let sig = match st.signal_hz {
+            Some(f) => format!(
+                "the signal at {f:.1} Hz ({:.1} dBFS, {})",
+                st.signal_dbfs, st.signal_source
+            ),
+            None => format!("the given signal level of {:.1} dBFS", st.signal_dbfs),
+        };
+        let _ = writeln!(
+            o,
+            "   sidetone at {:.1} Hz, {:.1} dBFS, is {:+.1} dB against {sig}",
+            st.sidetone_hz, st.sidetone_dbfs, st.ratio_db
+        );
+    }
+    if let (Some(d), Some(m)) = (s.rx_muting_db, &s.rx_muting) {
+        let _ = writeln!(
+            o,
+            "   receive muting: {d:.1} dB (receiver audio without the sidetone: {:.1} dBFS key-up, from the {}; {:.1} dBFS key-down)",
+            m.key_up_dbfs, m.key_up_from, m.key_down_dbfs
+        );
+        let _ = writeln!(o, "     {MUTING_TARGET}");
+    }
+}
+
+/// The trade's rule of thumb shown beside any muting figure.
+pub const MUTING_TARGET: &str = "for reference, a common-practice target (not a standard): muting 30-40 dB deep, the receiver still just audible";
+
 /// The readable report for one recording.
 pub fn render(r: &Report, with_elements: bool) -> String {
     let mut o = String::new();
@@ -257,6 +350,7 @@ pub fn render(r: &Report, with_elements: bool) -> String {
             "   measured in a {:.0} Hz band around the pitch; fastest edge it can show: {:.2} ms",
             s.envelope_bandwidth_hz, s.rise_floor_ms
         );
+        carrier_lines(&mut o, r);
     }
     if with_elements && !r.elements.is_empty() {
         let _ = writeln!(o);
@@ -413,6 +507,13 @@ pub fn render_compare(c: &Comparison) -> String {
                 let _ = writeln!(o, "{r}");
             }
         }
+    }
+    if let Some(m) = &c.muting {
+        let _ = writeln!(
+            o,
+            "Receive muting: {:.1} dB (the {:.1} Hz tone at {:.1} dBFS with muting off, {:.1} dBFS with it on); {MUTING_TARGET}.",
+            m.depth_db, m.tone_hz, m.muting_off_dbfs, m.muting_on_dbfs
+        );
     }
     let _ = writeln!(o);
     for (name, r) in [("Before", &c.before), ("After", &c.after)] {

@@ -1,6 +1,8 @@
 //! Command-line front end of the test-signal generator.
 
-use super::{write_files, Bandpass, Chirp, EdgeShape, Hum, SampleFormat, SynthSpec};
+use super::{
+    write_files, Bandpass, Chirp, EdgeShape, Hum, Mute, SampleFormat, SecondTone, SynthSpec, Warmup,
+};
 use anyhow::{bail, Context, Result};
 use std::path::PathBuf;
 
@@ -89,6 +91,23 @@ pub struct SynthArgs {
     /// Make the second tone steady instead of keyed.
     #[arg(long)]
     pub second_steady: bool,
+    /// Add another tone (repeatable): pitch in Hz, level in dB relative to
+    /// the main tone, and 1 to make it steady (default 0: keyed with the
+    /// second tone's text and speed rules).
+    #[arg(
+        long,
+        value_name = "PITCH_HZ,LEVEL_DB[,STEADY]",
+        allow_negative_numbers = true
+    )]
+    pub extra: Vec<String>,
+    /// Warm-up drift: the pitch moves by HZ in all, settling exponentially
+    /// with time constant TAU_S from the start of the file.
+    #[arg(long, value_name = "HZ,TAU_S", allow_negative_numbers = true)]
+    pub warmup: Option<String>,
+    /// Receive muting in the rig's own audio: noise and the other tones drop
+    /// by DEPTH_DB from each key-down until HANG_MS after its fall (default 0).
+    #[arg(long, value_name = "DEPTH_DB[,HANG_MS]")]
+    pub mute: Option<String>,
     /// Number of channels (1 or 2).
     #[arg(long)]
     pub channels: Option<u16>,
@@ -222,6 +241,29 @@ pub fn build_spec(a: &SynthArgs) -> Result<SynthSpec> {
         if a.second_steady {
             st.keyed = false;
         }
+    }
+    for e in &a.extra {
+        let v = numbers("extra", e, 2, 3)?;
+        s.extra_tones.push(SecondTone {
+            pitch_hz: v[0],
+            level_db: v[1],
+            keyed: v.get(2).is_none_or(|&x| x == 0.0),
+            ..SecondTone::default()
+        });
+    }
+    if let Some(w) = &a.warmup {
+        let v = numbers("warmup", w, 2, 2)?;
+        s.warmup = Some(Warmup {
+            hz: v[0],
+            tau_s: v[1],
+        });
+    }
+    if let Some(m) = &a.mute {
+        let v = numbers("mute", m, 1, 2)?;
+        s.mute = Some(Mute {
+            depth_db: v[0],
+            hang_ms: v.get(1).copied().unwrap_or(0.0),
+        });
     }
     Ok(s)
 }

@@ -22,6 +22,11 @@
 //!   σ² = (A²/2)/10^(SNR/10)·(fs/2)/B, so the noise power inside B equals the
 //!   key-down carrier power minus SNR dB.
 //! - Receiver band-pass: Butterworth on signal + noise of the signal channel.
+//! - Warm-up drift: f += hz·(1 − exp(−t/τ)), integrated exactly.
+//! - Receive muting (the rig's own audio): noise and every tone but the main
+//!   one are scaled by 10^(−depth/20) from an element's key-down until the
+//!   hang time after its 50 % fall.
+//! - Other tones (`second`, `extra_tones`): raised-cosine 5 ms keying or steady.
 
 pub mod cli;
 pub mod filter;
@@ -137,6 +142,24 @@ impl Default for SecondTone {
     }
 }
 
+/// Warm-up drift: offset(t) = hz·(1 − exp(−t/τ)) from the start of the file,
+/// as a transmitter's oscillator settles after switch-on.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Warmup {
+    pub hz: f64,
+    pub tau_s: f64,
+}
+
+/// Receive muting as heard in the rig's own audio: everything but the main
+/// tone is multiplied by 10^(−depth/20) from each element's key-down until
+/// `hang_ms` after its 50 % fall (a hang longer than the element spaces keeps
+/// the receiver muted through a whole transmission).
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Mute {
+    pub depth_db: f64,
+    pub hang_ms: f64,
+}
+
 /// Everything that defines a synthetic recording.
 #[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
 #[serde(default)]
@@ -164,11 +187,18 @@ pub struct SynthSpec {
     pub hum: Option<Hum>,
     /// Linear pitch drift over the recording.
     pub drift_hz_per_min: f64,
+    /// Warm-up drift: the pitch moves by `hz` in all, settling exponentially.
+    pub warmup: Option<Warmup>,
     /// Key-down carrier power over noise power in `noise_bandwidth_hz`.
     pub snr_db: Option<f64>,
     pub noise_bandwidth_hz: f64,
     pub rx_bandpass: Option<Bandpass>,
     pub second: Option<SecondTone>,
+    /// More tones beside `second` (other stations, steady carriers).
+    pub extra_tones: Vec<SecondTone>,
+    /// Receive muting of the rig's own audio: noise and the other tones are
+    /// attenuated while the main tone (the sidetone) is keyed.
+    pub mute: Option<Mute>,
     pub channels: u16,
     /// 1-based channel carrying the tones; others get only noise (or silence).
     pub signal_channel: u16,
@@ -199,10 +229,13 @@ impl Default for SynthSpec {
             backwave_db: None,
             hum: None,
             drift_hz_per_min: 0.0,
+            warmup: None,
             snr_db: None,
             noise_bandwidth_hz: 2500.0,
             rx_bandpass: None,
             second: None,
+            extra_tones: Vec::new(),
+            mute: None,
             channels: 1,
             signal_channel: 1,
             lead_in_s: 0.3,
@@ -259,6 +292,9 @@ pub struct Truth {
     pub total_frames: u64,
     pub elements: Vec<TruthElement>,
     pub second_elements: Vec<TruthElement>,
+    /// Elements of each keyed extra tone (empty for a steady one).
+    #[serde(default)]
+    pub extra_elements: Vec<Vec<TruthElement>>,
     /// Samples clamped to full scale when written (0 until written).
     #[serde(default)]
     pub clipped_samples: u64,
@@ -338,6 +374,8 @@ struct Tone {
     amp: f64,
     pitch: f64,
     drift_hz_per_s: f64,
+    /// Warm-up drift (total Hz, time constant s).
+    warmup: Option<(f64, f64)>,
     rise_shape: EdgeShape,
     rise_s: f64,
     fall_shape: EdgeShape,
@@ -377,6 +415,10 @@ impl Tone {
     fn phase_step(&mut self, t0: f64, t1: f64) -> f64 {
         let h = t1 - t0;
         let mut cycles = self.pitch * h + self.drift_hz_per_s * h * 0.5 * (t0 + t1);
+        if let Some((hz, tau)) = self.warmup {
+            // ∫ hz·(1 − e^(−t/τ)) dt over [t0, t1].
+            cycles += hz * (h - tau * ((-t0 / tau).exp() - (-t1 / tau).exp()));
+        }
         if self.keyed && !matches!(self.chirp, ChirpLaw::None) {
             loop {
                 let next = self.last_on.map_or(0, |i| i + 1);
@@ -434,6 +476,11 @@ pub struct Synth {
     frame: u64,
     main: Tone,
     second: Option<Tone>,
+    extras: Vec<Tone>,
+    /// Receive muting: gain while muted, hang after each fall (s).
+    mute: Option<(f64, f64)>,
+    /// First main element whose muting window may still be ahead.
+    mute_first: usize,
     noise_sigma: f64,
     rng: Xoshiro256PlusPlus,
     filter: Option<BandpassFilter>,
@@ -668,74 +715,57 @@ impl Synth {
         };
         let mut end = end_of(&elems, fall);
 
+        let mut peak = amp * (1.0 + s.hum.map_or(0.0, |h| h.am_percent / 100.0));
         let mut second = None;
         let mut second_truth = Vec::new();
-        let mut peak = amp * (1.0 + s.hum.map_or(0.0, |h| h.am_percent / 100.0));
         if let Some(st) = &s.second {
-            check(
-                st.pitch_hz.is_finite() && st.pitch_hz > 0.0 && st.pitch_hz < 0.45 * fs,
-                "the second tone's pitch must be above 0 Hz and below 0.45 times the sample rate.",
-            )?;
-            check(
-                finite_in(st.level_db, -150.0, 40.0),
-                "the second tone's level must be between -150 and +40 dB relative to the main tone.",
-            )?;
-            let wpm2 = st.wpm.unwrap_or(s.wpm);
-            check(
-                finite_in(wpm2, 1.0, 100.0),
-                "the second tone's speed must be between 1 and 100 WPM.",
-            )?;
-            let amp2 = amp * 10f64.powf(st.level_db / 20.0);
-            peak += amp2;
-            let edge = (EdgeShape::RaisedCosine, 5e-3);
-            let elems2 = if st.keyed {
-                let (e2, _) = build_elements(&Keying {
-                    what: "second tone",
-                    text: st.text.as_deref().unwrap_or(&s.text),
-                    wpm: wpm2,
-                    dah_dit_ratio: 3.0,
-                    mark_space_ratio: 1.0,
-                    rise: edge,
-                    fall: edge,
-                    lead_in_s: s.lead_in_s,
-                    repeat: s.repeat,
-                })?;
-                end = end.max(end_of(&e2, edge));
-                let level2 = s.level_dbfs + st.level_db;
-                second_truth = e2
-                    .iter()
-                    .map(|e| TruthElement {
-                        start_s: e.t_s,
-                        duration_s: e.t_e - e.t_s,
-                        kind: kind_of(e.t_e - e.t_s, 1.2 / wpm2),
-                        rise_ms: 5.0,
-                        fall_ms: 5.0,
-                        chirp_hz: 0.0,
-                        level_dbfs: level2,
-                    })
-                    .collect();
-                e2
-            } else {
-                Vec::new()
-            };
-            second = Some(Tone {
-                amp: amp2,
-                pitch: st.pitch_hz,
-                drift_hz_per_s: 0.0,
-                rise_shape: edge.0,
-                rise_s: edge.1,
-                fall_shape: edge.0,
-                fall_s: edge.1,
-                chirp: ChirpLaw::None,
-                keyed: st.keyed,
-                backwave: 0.0,
-                hum: None,
-                elems: elems2,
-                first: 0,
-                last_on: None,
-                phase: 0.0,
-            });
+            let (t, tr, e) = other_tone(st, s, amp, "second tone")?;
+            peak += t.amp;
+            end = end.max(e);
+            second = Some(t);
+            second_truth = tr;
         }
+        check(
+            s.extra_tones.len() <= 6,
+            "at most 6 extra tones can be added.",
+        )?;
+        let mut extras = Vec::new();
+        let mut extra_truth = Vec::new();
+        for st in &s.extra_tones {
+            let (t, tr, e) = other_tone(st, s, amp, "extra tone")?;
+            peak += t.amp;
+            end = end.max(e);
+            extras.push(t);
+            extra_truth.push(tr);
+        }
+        let mute = match s.mute {
+            Some(m) => {
+                check(
+                    finite_in(m.depth_db, 0.0, 200.0),
+                    "the muting depth must be between 0 and 200 dB.",
+                )?;
+                check(
+                    finite_in(m.hang_ms, 0.0, 60_000.0),
+                    "the muting hang time must be between 0 and 60000 ms.",
+                )?;
+                Some((10f64.powf(-m.depth_db / 20.0), m.hang_ms * 1e-3))
+            }
+            None => None,
+        };
+        let warmup = match s.warmup {
+            Some(w) => {
+                check(
+                    w.hz.is_finite() && w.hz.abs() < 0.2 * fs,
+                    "the warm-up drift must be a finite number of Hz, well below the sample rate.",
+                )?;
+                check(
+                    finite_in(w.tau_s, 0.001, 86_400.0),
+                    "the warm-up time constant must be between 0.001 and 86400 s.",
+                )?;
+                Some((w.hz, w.tau_s))
+            }
+            None => None,
+        };
         check(
             peak <= 1.0 + 1e-9,
             "the noise-free peak would exceed full scale; lower the level, the hum AM depth or the second tone.",
@@ -808,6 +838,7 @@ impl Synth {
             total_frames,
             elements,
             second_elements: second_truth,
+            extra_elements: extra_truth,
             clipped_samples: 0,
             notes,
         };
@@ -815,6 +846,7 @@ impl Synth {
             amp,
             pitch: s.pitch_hz,
             drift_hz_per_s: drift,
+            warmup,
             rise_shape: rise.0,
             rise_s: rise.1,
             fall_shape: fall.0,
@@ -836,6 +868,9 @@ impl Synth {
             frame: 0,
             main,
             second,
+            extras,
+            mute,
+            mute_first: 0,
             noise_sigma,
             rng: Xoshiro256PlusPlus::seed_from_u64(s.seed),
             filter,
@@ -865,14 +900,19 @@ impl Synth {
         let frames = ((out.len() / ch) as u64).min(self.total_frames - self.frame) as usize;
         for frame in out.chunks_exact_mut(ch).take(frames) {
             let n = self.frame;
-            let mut x = self.main.sample(n, self.fs);
+            let gain = self.mute_gain(n as f64 / self.fs);
+            let mut others = 0.0;
             if let Some(t2) = self.second.as_mut() {
-                x += t2.sample(n, self.fs);
+                others += t2.sample(n, self.fs);
             }
+            for t in &mut self.extras {
+                others += t.sample(n, self.fs);
+            }
+            let x = self.main.sample(n, self.fs) + gain * others;
             for (c, v) in frame.iter_mut().enumerate() {
                 let noise = if self.noise_sigma > 0.0 {
                     let g: f64 = StandardNormal.sample(&mut self.rng);
-                    g * self.noise_sigma
+                    g * self.noise_sigma * gain
                 } else {
                     0.0
                 };
@@ -891,6 +931,22 @@ impl Synth {
         frames
     }
 
+    /// Gain of the receiver audio at `t` (1 when not muted). Called with
+    /// rising `t`.
+    fn mute_gain(&mut self, t: f64) -> f64 {
+        let Some((g, hang)) = self.mute else {
+            return 1.0;
+        };
+        let els = &self.main.elems;
+        while self.mute_first < els.len() && els[self.mute_first].t_e + hang < t {
+            self.mute_first += 1;
+        }
+        match els.get(self.mute_first) {
+            Some(e) if e.t_on <= t => g,
+            _ => 1.0,
+        }
+    }
+
     /// Fills `out` with interleaved frames (channels per frame); returns
     /// frames written, 0 at the end. Memory use does not grow with length.
     pub fn fill(&mut self, out: &mut [f32]) -> usize {
@@ -904,6 +960,86 @@ impl Synth {
         self.buf = buf;
         frames
     }
+}
+
+/// Builds a second or extra tone: raised-cosine 5 ms keying, standard
+/// weighting, no chirp. Returns the tone, its truth elements and the end of
+/// its last fall.
+fn other_tone(
+    st: &SecondTone,
+    s: &SynthSpec,
+    amp: f64,
+    what: &str,
+) -> Result<(Tone, Vec<TruthElement>, f64)> {
+    let fs = s.sample_rate_hz as f64;
+    check(
+        st.pitch_hz.is_finite() && st.pitch_hz > 0.0 && st.pitch_hz < 0.45 * fs,
+        &format!("the {what}'s pitch must be above 0 Hz and below 0.45 times the sample rate."),
+    )?;
+    check(
+        finite_in(st.level_db, -150.0, 40.0),
+        &format!("the {what}'s level must be between -150 and +40 dB relative to the main tone."),
+    )?;
+    let wpm2 = st.wpm.unwrap_or(s.wpm);
+    check(
+        finite_in(wpm2, 1.0, 100.0),
+        &format!("the {what}'s speed must be between 1 and 100 WPM."),
+    )?;
+    let amp2 = amp * 10f64.powf(st.level_db / 20.0);
+    let edge = (EdgeShape::RaisedCosine, 5e-3);
+    let mut end = 0.0;
+    let mut truth = Vec::new();
+    let elems = if st.keyed {
+        let (e2, _) = build_elements(&Keying {
+            what,
+            text: st.text.as_deref().unwrap_or(&s.text),
+            wpm: wpm2,
+            dah_dit_ratio: 3.0,
+            mark_space_ratio: 1.0,
+            rise: edge,
+            fall: edge,
+            lead_in_s: s.lead_in_s,
+            repeat: s.repeat,
+        })?;
+        end = e2
+            .last()
+            .map_or(0.0, |l| l.t_e + shapes::settle_s(edge.0, edge.1));
+        let level2 = s.level_dbfs + st.level_db;
+        truth = e2
+            .iter()
+            .map(|e| TruthElement {
+                start_s: e.t_s,
+                duration_s: e.t_e - e.t_s,
+                kind: kind_of(e.t_e - e.t_s, 1.2 / wpm2),
+                rise_ms: 5.0,
+                fall_ms: 5.0,
+                chirp_hz: 0.0,
+                level_dbfs: level2,
+            })
+            .collect();
+        e2
+    } else {
+        Vec::new()
+    };
+    let tone = Tone {
+        amp: amp2,
+        pitch: st.pitch_hz,
+        drift_hz_per_s: 0.0,
+        warmup: None,
+        rise_shape: edge.0,
+        rise_s: edge.1,
+        fall_shape: edge.0,
+        fall_s: edge.1,
+        chirp: ChirpLaw::None,
+        keyed: st.keyed,
+        backwave: 0.0,
+        hum: None,
+        elems,
+        first: 0,
+        last_on: None,
+        phase: 0.0,
+    };
+    Ok((tone, truth, end))
 }
 
 /// Dit if the mark is nearer the dit mark than twice it (any dah ratio > 1 works).
