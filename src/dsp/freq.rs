@@ -74,29 +74,42 @@ pub fn trace(z: &[Complex32], fs: f64, t50r: f64, t50f: f64) -> Trace {
     // Only the stretch the Kay windows will read needs filtering.
     let lo = (t50r - n as f64).max(0.0) as usize;
     let hi = ((t50f + n as f64 + 2.0) as usize).min(z.len());
-    let zf: Vec<Complex32> = (0..z.len())
-        .map(|i| {
-            if i < lo || i >= hi {
-                return Complex32::new(0.0, 0.0);
+    let mut zf = vec![Complex32::new(0.0, 0.0); z.len()];
+    // Where the whole kernel fits: tap by tap over all outputs at once, a
+    // loop the compiler vectorizes; each output still adds its taps in
+    // kernel order, so the sums are the same as one output at a time.
+    let (a, b) = (lo.max(h), hi.min(z.len().saturating_sub(h)));
+    if a < b {
+        let m = b - a;
+        let src_re: Vec<f64> = z[a - h..b + h].iter().map(|v| v.re as f64).collect();
+        let src_im: Vec<f64> = z[a - h..b + h].iter().map(|v| v.im as f64).collect();
+        let mut re = vec![0.0f64; m];
+        let mut im = vec![0.0f64; m];
+        for (j, &w) in k.iter().enumerate() {
+            for (o, v) in re.iter_mut().zip(&src_re[j..j + m]) {
+                *o += v * w;
             }
-            let (mut re, mut im) = (0.0f64, 0.0f64);
-            if i >= h && i + h < z.len() {
-                // Whole kernel inside: no index checks in the loop.
-                for (w, v) in k.iter().zip(&z[i - h..=i + h]) {
-                    re += v.re as f64 * *w;
-                    im += v.im as f64 * *w;
-                }
-            } else {
-                for (j, w) in k.iter().enumerate() {
-                    if let Some(v) = (i + j).checked_sub(h).and_then(|q| z.get(q)) {
-                        re += v.re as f64 * *w;
-                        im += v.im as f64 * *w;
-                    }
-                }
+            for (o, v) in im.iter_mut().zip(&src_im[j..j + m]) {
+                *o += v * w;
             }
-            Complex32::new(re as f32, im as f32)
-        })
-        .collect();
+        }
+        for ((o, r), i) in zf[a..b].iter_mut().zip(&re).zip(&im) {
+            *o = Complex32::new(*r as f32, *i as f32);
+        }
+    }
+    // The few outputs near the ends of `z`, with a partial kernel.
+    for (i, o) in zf.iter_mut().enumerate().take(hi).skip(lo) {
+        if i >= a && i < b {
+            continue;
+        }
+        let mut acc = Complex64::new(0.0, 0.0);
+        for (j, w) in k.iter().enumerate() {
+            if let Some(v) = (i + j).checked_sub(h).and_then(|q| z.get(q)) {
+                acc += Complex64::new(v.re as f64, v.im as f64) * *w;
+            }
+        }
+        *o = Complex32::new(acc.re as f32, acc.im as f32);
+    }
     let z = &zf[..];
     let w = kay_weights(n);
     let step = TRACE_STEP_S * fs;
