@@ -217,7 +217,8 @@ pub fn occupancy_crossing<E: Env + ?Sized>(
         let s0 = (i as f64).max(a);
         let s1 = ((i + 1) as f64).min(b);
         if s1 > s0 {
-            let v = |x: f64| env.at(i) + (env.at(i + 1) - env.at(i)) * (x - i as f64);
+            let (e0, e1) = (env.at(i), env.at(i + 1));
+            let v = |x: f64| e0 + (e1 - e0) * (x - i as f64);
             let (v0, v1) = (v(s0), v(s1));
             occ += match (before(v0), before(v1)) {
                 (true, true) => s1 - s0,
