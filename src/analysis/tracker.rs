@@ -337,7 +337,9 @@ impl ToneTracker {
                 self.run -= Complex64::new(old.re as f64, old.im as f64);
             }
             if head + 1 >= w {
-                let d = (self.run / w as f64).norm();
+                // sqrt of the squared magnitude: hypot guards against overflow
+                // that baseband samples of at most full scale cannot reach.
+                let d = (self.run / w as f64).norm_sqr().sqrt();
                 // det index = head - (w-1)/2
                 if self.det.is_empty() {
                     self.detbase = head - (w - 1) / 2;
