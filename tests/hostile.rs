@@ -758,6 +758,12 @@ fn one_hour_mono_is_measured() {
     }
     let m = v["summary"]["rise_ms"]["median"].as_f64().unwrap();
     assert!((m - 5.0).abs() < 0.15, "rise {m}");
+    // An hour holds more trace points than are kept (tracker::TRACE_POINTS_MAX),
+    // so the mean-element chirp comes from a sample of the elements; the
+    // signal has none, and a chirp-free signal must read below 1 Hz (as in
+    // tests/accuracy_grid.rs).
+    let c = v["summary"]["chirp_mean_element_hz"].as_f64().unwrap();
+    assert!(c < 1.0, "mean-element chirp {c}");
 }
 
 /// One hour of a four-channel recording (8 kHz, 16-bit, 230 MB): a steady
