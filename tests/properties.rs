@@ -255,7 +255,10 @@ fn trace_sample_levels_are_nested_halves() {
         for p in 0..14 {
             let m = (p..n).step_by(14).filter(|&i| trace_kept(i, level)).count();
             let e = (n / 14) as f64 / f64::from(1u32 << level);
-            assert!((m as f64 - e).abs() < 5.0 * e.sqrt(), "level {level} pos {p}: {m}");
+            assert!(
+                (m as f64 - e).abs() < 5.0 * e.sqrt(),
+                "level {level} pos {p}: {m}"
+            );
         }
     }
     assert!((0..1000).all(|i| trace_kept(i, 0)));
@@ -304,5 +307,8 @@ fn mean_element_chirp_from_a_trace_sample() {
     // Elements without a trace are left out, not counted as empty.
     let half = ensemble_chirp(&thinned).unwrap();
     assert_eq!(ensemble_chirp(&kept), Some(half));
-    assert!((half - truth).abs() <= tol, "half the traces: {half} vs {truth}");
+    assert!(
+        (half - truth).abs() <= tol,
+        "half the traces: {half} vs {truth}"
+    );
 }

@@ -335,7 +335,8 @@ impl Downconverter {
             let n_abs = (base - hd + (mi * self.d) as i128) as f64;
             -2.0 * PI * (rot + self.residual_hz * n_abs / self.fs)
         };
-        let turn = Complex64::from_polar(1.0, -2.0 * PI * self.residual_hz * self.d as f64 / self.fs);
+        let turn =
+            Complex64::from_polar(1.0, -2.0 * PI * self.residual_hz * self.d as f64 / self.fs);
         let mut c = Complex64::new(0.0, 0.0);
         for mi in first..first + count {
             c = if (mi - first) % 64 == 0 {

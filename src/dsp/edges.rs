@@ -140,7 +140,12 @@ impl Env for LazyEnvelope<'_> {
 
 /// Fractional index where `env` crosses `level` going up, searching
 /// backwards from `from` (the latest such crossing at or before it).
-pub fn rising_before<E: Env + ?Sized>(env: &E, from: usize, level: f64, stop: usize) -> Option<f64> {
+pub fn rising_before<E: Env + ?Sized>(
+    env: &E,
+    from: usize,
+    level: f64,
+    stop: usize,
+) -> Option<f64> {
     let mut i = from.min(env.len().saturating_sub(2));
     while i >= stop {
         if env.at(i) < level && env.at(i + 1) >= level {
@@ -163,7 +168,12 @@ pub fn rising_after<E: Env + ?Sized>(env: &E, from: usize, level: f64, stop: usi
 }
 
 /// First downward crossing of `level` at or after `from`, before `stop`.
-pub fn falling_after<E: Env + ?Sized>(env: &E, from: usize, level: f64, stop: usize) -> Option<f64> {
+pub fn falling_after<E: Env + ?Sized>(
+    env: &E,
+    from: usize,
+    level: f64,
+    stop: usize,
+) -> Option<f64> {
     let end = stop.min(env.len().saturating_sub(1));
     (from..end)
         .find(|&i| env.at(i) >= level && env.at(i + 1) < level)
@@ -171,7 +181,12 @@ pub fn falling_after<E: Env + ?Sized>(env: &E, from: usize, level: f64, stop: us
 }
 
 /// Latest downward crossing of `level` at or before `from`, not before `stop`.
-pub fn falling_before<E: Env + ?Sized>(env: &E, from: usize, level: f64, stop: usize) -> Option<f64> {
+pub fn falling_before<E: Env + ?Sized>(
+    env: &E,
+    from: usize,
+    level: f64,
+    stop: usize,
+) -> Option<f64> {
     let mut i = from.min(env.len().saturating_sub(2));
     while i >= stop {
         if env.at(i) >= level && env.at(i + 1) < level {
@@ -241,7 +256,13 @@ pub fn occupancy_crossing<E: Env + ?Sized>(
 
 /// Share of samples in `lo..hi` on the wrong side of `level`: below it when
 /// `want_above`, else at or above it. 0 when the region is too short to say.
-fn wrong_side_rate<E: Env + ?Sized>(env: &E, level: f64, lo: f64, hi: f64, want_above: bool) -> f64 {
+fn wrong_side_rate<E: Env + ?Sized>(
+    env: &E,
+    level: f64,
+    lo: f64,
+    hi: f64,
+    want_above: bool,
+) -> f64 {
     let a = lo.max(0.0).ceil() as usize;
     let b = (hi.floor() as usize).min(env.len());
     if b < a + 10 {
