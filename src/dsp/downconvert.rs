@@ -339,7 +339,7 @@ impl Downconverter {
             Complex64::from_polar(1.0, -2.0 * PI * self.residual_hz * self.d as f64 / self.fs);
         let mut c = Complex64::new(0.0, 0.0);
         for mi in first..first + count {
-            c = if (mi - first) % 64 == 0 {
+            c = if (mi - first).is_multiple_of(64) {
                 Complex64::from_polar(scale, phase(mi))
             } else {
                 c * turn

@@ -44,13 +44,24 @@ pub fn kay_weights(n: usize) -> Vec<f64> {
 /// Kay's estimate of the mean frequency (Hz) over `z[start..start+n]`, and
 /// the summed weight (amplitude squared) behind it.
 pub fn kay_frequency(z: &[Complex32], start: usize, w: &[f64], fs: f64) -> (f64, f64) {
-    let mut acc = Complex64::new(0.0, 0.0);
     let zs = &z[start..start + w.len() + 1];
-    for (pair, wk) in zs.windows(2).zip(w) {
-        let (b, a) = (pair[0], pair[1]);
-        let p =
-            Complex64::new(a.re as f64, a.im as f64) * Complex64::new(b.re as f64, -b.im as f64);
-        acc += p * *wk;
+    let p: Vec<Complex64> = zs
+        .windows(2)
+        .map(|pair| lag_product(pair[0], pair[1]))
+        .collect();
+    kay_from_products(&p, w, fs)
+}
+
+/// z[n] z*[n-1] in double precision, for `b` = z[n-1] and `a` = z[n].
+fn lag_product(b: Complex32, a: Complex32) -> Complex64 {
+    Complex64::new(a.re as f64, a.im as f64) * Complex64::new(b.re as f64, -b.im as f64)
+}
+
+/// Kay's estimate from lag-one products already formed (`p.len() == w.len()`).
+fn kay_from_products(p: &[Complex64], w: &[f64], fs: f64) -> (f64, f64) {
+    let mut acc = Complex64::new(0.0, 0.0);
+    for (pk, wk) in p.iter().zip(w) {
+        acc += pk * *wk;
     }
     (acc.arg() * fs / (2.0 * PI), acc.norm())
 }
@@ -112,13 +123,24 @@ pub fn trace(z: &[Complex32], fs: f64, t50r: f64, t50f: f64) -> Trace {
     }
     let z = &zf[..];
     let w = kay_weights(n);
+    // Lag-one products over the filtered stretch, formed once: trace points
+    // are closer than a window, so each product serves several windows.
+    let p_lo = lo.min(z.len());
+    let p_hi = hi.min(z.len().saturating_sub(1)).max(p_lo);
+    let prod: Vec<Complex64> = (p_lo..p_hi).map(|i| lag_product(z[i], z[i + 1])).collect();
     let step = TRACE_STEP_S * fs;
     let mut out = Trace::default();
     let mut c = t50r;
     while c <= t50f {
         let start = (c - (n as f64 - 1.0) / 2.0).round();
         if start >= 0.0 && (start as usize) + n <= z.len() {
-            let (f, wt) = kay_frequency(z, start as usize, &w, fs);
+            let s0 = start as usize;
+            // Windows inside the filtered stretch read the shared products.
+            let (f, wt) = if s0 >= p_lo && s0 + w.len() <= p_hi {
+                kay_from_products(&prod[s0 - p_lo..s0 - p_lo + w.len()], &w, fs)
+            } else {
+                kay_frequency(z, s0, &w, fs)
+            };
             out.t.push((c - t50r) / fs);
             out.f.push(f);
             out.w.push(wt);
