@@ -376,5 +376,202 @@ fn main() {
             }
         }
     }
+    if want("carrier") {
+        fails += carrier_tables(dir.path());
+    }
     println!("\nCases outside their tolerance: {fails}");
+}
+
+/// Issue 4's figures against synthesizer truth: sidetone ratio, muting,
+/// backwave, hum and drift. Returns the cases outside tolerance.
+fn carrier_tables(dir: &std::path::Path) -> usize {
+    use cwaudit::synth::{Hum, Mute, SampleFormat, SecondTone, Warmup};
+    let mut fails = 0;
+    let analyse = |s: &SynthSpec, name: &str, opt: &Options| {
+        let p = dir.join(format!("{name}.wav"));
+        let t = cwaudit::synth::write_files(s, &p, true).expect("synth");
+        (cwaudit::analysis::analyze_file(&p, opt).expect("analysis"), t)
+    };
+    let carrier_base = || SynthSpec {
+        text: "PARIS PARIS".into(),
+        format: SampleFormat::F32,
+        snr_db: Some(40.0),
+        seed: 21,
+        ..Default::default()
+    };
+    let mut check = |good: bool| {
+        if !good {
+            fails += 1;
+        }
+        ok(good)
+    };
+    println!("\n### Sidetone ratio and muting depth\n");
+    println!("Main tone 700 Hz at -10 dBFS (the sidetone), 32-bit float, SNR 95 dB for the ratio rows; the signal is a keyed");
+    println!("tone at 1500 Hz (other text, 18 WPM). Muting rows: SNR 30 dB of receiver noise, muted from each key-down until");
+    println!("the hang time after its fall, 2 s lead-in. Tolerance 1 dB (issue 4).\n");
+    println!("| case | truth dB | measured dB | error dB | within |");
+    println!("|---|---|---|---|---|");
+    for ratio in [0.0, 20.0, 40.0, 60.0] {
+        let s = SynthSpec {
+            level_dbfs: -10.0,
+            snr_db: Some(95.0),
+            second: Some(SecondTone {
+                pitch_hz: 1500.0,
+                level_db: -ratio,
+                text: Some("TEST DE NOBODY".into()),
+                wpm: Some(18.0),
+                keyed: true,
+            }),
+            ..carrier_base()
+        };
+        let opt = Options {
+            sidetone_hz: Some(700.0),
+            tone_hz: Some(700.0),
+            ..Default::default()
+        };
+        let (r, _) = analyse(&s, "ratio", &opt);
+        let m = r.summary.sidetone.map_or(f64::NAN, |x| x.ratio_db);
+        println!(
+            "| sidetone ratio {ratio} dB | {ratio:.1} | {m:.2} | {:+.2} | {} |",
+            m - ratio,
+            check((m - ratio).abs() <= 1.0)
+        );
+    }
+    for (depth, hang) in [(10.0, 0.0), (30.0, 0.0), (30.0, 300.0), (40.0, 800.0), (60.0, 300.0)] {
+        let s = SynthSpec {
+            snr_db: Some(30.0),
+            lead_in_s: 2.0,
+            mute: Some(Mute {
+                depth_db: depth,
+                hang_ms: hang,
+            }),
+            ..carrier_base()
+        };
+        let opt = Options {
+            sidetone_hz: Some(700.0),
+            ..Default::default()
+        };
+        let (r, _) = analyse(&s, "mute", &opt);
+        let m = r.summary.rx_muting_db.unwrap_or(f64::NAN);
+        println!(
+            "| muting {depth} dB, hang {hang} ms | {depth:.1} | {m:.2} | {:+.2} | {} |",
+            m - depth,
+            check((m - depth).abs() <= 1.0)
+        );
+    }
+    for depth in [20.0, 35.0, 50.0] {
+        let off = carrier_base();
+        let on = SynthSpec {
+            level_dbfs: off.level_dbfs - depth,
+            ..carrier_base()
+        };
+        let (a, _) = analyse(&off, "off", &Options::default());
+        let (b, _) = analyse(&on, "on", &Options::default());
+        let m = cwaudit::compare::muting_across(&a, &b).map_or(f64::NAN, |x| x.depth_db);
+        println!(
+            "| muting across two recordings, {depth} dB | {depth:.1} | {m:.2} | {:+.2} | {} |",
+            m - depth,
+            check((m - depth).abs() <= 1.0)
+        );
+    }
+
+    println!("\n### Backwave, hum and drift\n");
+    println!("700 Hz, -12 dBFS, 32-bit float, \"PARIS PARIS\" sent 3 times, SNR 40 dB. Tolerances: backwave 1 dB down to");
+    println!("-50 dB; hum AM 0.5 percentage points, FM max(10 %, 0.3 Hz); drift 0.2 Hz/min (issue 4).\n");
+    println!("| case | truth | measured | floor | within |");
+    println!("|---|---|---|---|---|");
+    for bw in [-30.0, -40.0, -50.0, -60.0] {
+        let s = SynthSpec {
+            repeat: 3,
+            backwave_db: Some(bw),
+            ..carrier_base()
+        };
+        let (r, _) = analyse(&s, "bw", &Options::default());
+        let c = &r.summary.carrier;
+        let m = c.backwave_db;
+        let floor = c.backwave_floor_db.unwrap_or(f64::NAN);
+        // Below the floor the figure must be null.
+        let good = match m {
+            Some(v) => (v - bw).abs() <= 1.0,
+            None => bw < floor + 1.0,
+        };
+        println!(
+            "| backwave {bw} dB | {bw:.1} dB | {} | {floor:.1} dB | {} |",
+            m.map_or("null".into(), |v| format!("{v:.2} dB")),
+            check(good)
+        );
+    }
+    for (f, am, fm) in [
+        (100.0, 2.0, 0.0),
+        (100.0, 5.0, 2.0),
+        (50.0, 3.0, 5.0),
+        (120.0, 10.0, 1.0),
+        (300.0, 2.0, 3.0),
+        (360.0, 4.0, 0.5),
+    ] {
+        let s = SynthSpec {
+            repeat: 3,
+            hum: Some(Hum {
+                frequency_hz: f,
+                am_percent: am,
+                fm_hz: fm,
+            }),
+            ..carrier_base()
+        };
+        let (r, _) = analyse(&s, "hum", &Options::default());
+        let h = r.summary.carrier.hum.expect("hum figures");
+        let ma = h.am_percent.unwrap_or(f64::NAN);
+        let mf = h.fm_hz.unwrap_or(0.0);
+        let good = h.frequency_hz == f
+            && (ma - am).abs() <= 0.5
+            && (fm == 0.0 || (mf - fm).abs() <= (0.1 * fm).max(0.3));
+        println!(
+            "| hum {f} Hz, AM {am} %, FM {fm} Hz | {am:.2} % / {fm:.2} Hz | {ma:.2} % / {} at {} Hz | {:.2} % / {:.2} Hz | {} |",
+            h.fm_hz.map_or("null".into(), |v| format!("{v:.2} Hz")),
+            h.frequency_hz,
+            h.am_floor_percent,
+            h.fm_floor_hz,
+            check(good)
+        );
+    }
+    for d in [-3.0, 1.0, 10.0] {
+        let s = SynthSpec {
+            repeat: 12,
+            drift_hz_per_min: d,
+            ..carrier_base()
+        };
+        let (r, _) = analyse(&s, "drift", &Options::default());
+        let m = r.summary.carrier.drift_hz_per_min.unwrap_or(f64::NAN);
+        println!(
+            "| drift {d} Hz/min over 60 s | {d:.2} Hz/min | {m:.3} Hz/min | | {} |",
+            check((m - d).abs() <= 0.2)
+        );
+    }
+    let s = SynthSpec {
+        repeat: 13,
+        warmup: Some(Warmup {
+            hz: 30.0,
+            tau_s: 20.0,
+        }),
+        ..carrier_base()
+    };
+    let (r, t) = analyse(&s, "warmup", &Options::default());
+    let n = t.elements.len();
+    let k = (n / 10).max(3);
+    let off = |e: &[cwaudit::synth::TruthElement]| {
+        let mut v: Vec<f64> = e
+            .iter()
+            .map(|x| 30.0 * (1.0 - (-(x.start_s + 0.5 * x.duration_s) / 20.0).exp()))
+            .collect();
+        v.sort_by(f64::total_cmp);
+        v[v.len() / 2]
+    };
+    let want = off(&t.elements[n - k..]) - off(&t.elements[..k]);
+    let m = r.summary.carrier.drift_total_hz.unwrap_or(f64::NAN);
+    println!(
+        "| warm-up 30 Hz, tau 20 s, over 65 s: last tenth less first | {want:.2} Hz | {m:.2} Hz (slope {:.2} Hz/min) | | {} |",
+        r.summary.carrier.drift_hz_per_min.unwrap_or(f64::NAN),
+        check((m - want).abs() <= 1.5)
+    );
+    fails
 }

@@ -202,7 +202,7 @@ fn analyze(a: &AnalyzeArgs) -> Result<i32> {
         crate::present::view_args::run(&a.view, &rep, a.force)?;
     }
     if a.json {
-        emit(&format!("{}\n", present::json::to_json(&rep)));
+        present::json::print_json(&rep);
     } else {
         emit(&present::text::render(&rep, a.elements));
     }

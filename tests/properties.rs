@@ -231,3 +231,84 @@ proptest! {
         }
     }
 }
+
+// ------------------------------------------------------------- trace sample
+
+/// Long recordings keep frequency traces for a sample of their elements
+/// (`tracker::trace_kept`): each level keeps half of the previous level's
+/// elements, as a subset of them, spread by a hash.
+#[test]
+fn trace_sample_levels_are_nested_halves() {
+    use cwaudit::analysis::tracker::trace_kept;
+    let n = 200_000usize;
+    for level in 1..=6u32 {
+        let kept = (0..n).filter(|&i| trace_kept(i, level)).count();
+        let expect = n as f64 / f64::from(1u32 << level);
+        // Binomial scatter: 5 standard deviations.
+        assert!(
+            (kept as f64 - expect).abs() < 5.0 * expect.sqrt(),
+            "level {level}: {kept} kept of {n}, expected about {expect}"
+        );
+        assert!((0..n).all(|i| !trace_kept(i, level) || trace_kept(i, level - 1)));
+        // No period-2 or period-14 aliasing (the 14 elements of "PARIS"):
+        // every position within the repeat keeps about its share.
+        for p in 0..14 {
+            let m = (p..n).step_by(14).filter(|&i| trace_kept(i, level)).count();
+            let e = (n / 14) as f64 / f64::from(1u32 << level);
+            assert!(
+                (m as f64 - e).abs() < 5.0 * e.sqrt(),
+                "level {level} pos {p}: {m}"
+            );
+        }
+    }
+    assert!((0..1000).all(|i| trace_kept(i, 0)));
+}
+
+/// The mean-element chirp from a sample of the traces: with every other
+/// element's trace dropped, as a long recording drops them, it reads the
+/// same chirp as from all of them. Truth: the synthesizer's 20 Hz
+/// exponential chirp (tau 10 ms), read at the 50 % rise as the grid tests
+/// read it (tests/accuracy_grid.rs, 10 % or 1 Hz).
+#[test]
+fn mean_element_chirp_from_a_trace_sample() {
+    use cwaudit::accuracy::run_case;
+    use cwaudit::analysis::tracker::trace_kept;
+    use cwaudit::analysis::{ensemble_chirp, Options};
+    use cwaudit::synth::Chirp;
+    let spec = SynthSpec {
+        text: "PARIS PARIS PARIS".into(),
+        chirp: Chirp::Exponential {
+            depth_hz: 20.0,
+            tau_ms: 10.0,
+        },
+        snr_db: Some(30.0),
+        seed: 3,
+        ..SynthSpec::default()
+    };
+    let dir = tempfile::tempdir().unwrap();
+    let c = run_case(&spec, dir.path(), "chirp", &Options::default()).unwrap();
+    let full = c.report.summary.chirp_mean_element_hz.unwrap();
+    assert_eq!(ensemble_chirp(&c.report.elements), Some(full));
+    let truth = c.chirp_truth_hz();
+    let tol = (0.1 * truth).max(1.0);
+    assert!((full - truth).abs() <= tol, "all traces: {full} vs {truth}");
+    let mut thinned = c.report.elements.clone();
+    for (i, e) in thinned.iter_mut().enumerate() {
+        if !trace_kept(i, 1) {
+            e.trace.clear();
+        }
+    }
+    let kept: Vec<_> = thinned
+        .iter()
+        .filter(|e| !e.trace.is_empty())
+        .cloned()
+        .collect();
+    assert!(kept.len() < thinned.len() && kept.len() >= 10);
+    // Elements without a trace are left out, not counted as empty.
+    let half = ensemble_chirp(&thinned).unwrap();
+    assert_eq!(ensemble_chirp(&kept), Some(half));
+    assert!(
+        (half - truth).abs() <= tol,
+        "half the traces: {half} vs {truth}"
+    );
+}

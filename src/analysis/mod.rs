@@ -186,17 +186,17 @@ fn no_signal(input: InputInfo, s: &SurveyResult) -> Report {
 /// elements cuts the trace noise by about sqrt(N), so a chirp too small to
 /// see in one element shows here. Dits are
 /// used when there are enough of them (they share one length), else all
-/// elements up to the shortest.
+/// elements up to the shortest. Only elements that kept their trace take
+/// part: a long recording keeps traces for an evenly spread sample of its
+/// elements (`tracker::TRACE_POINTS_MAX`).
 pub fn ensemble_chirp(elements: &[Element]) -> Option<f64> {
     use crate::dsp::freq::{chirp, Trace};
-    let dits: Vec<&Element> = elements
-        .iter()
-        .filter(|e| e.kind == report::Kind::Dit)
-        .collect();
+    let traced = || elements.iter().filter(|e| !e.trace.is_empty());
+    let dits: Vec<&Element> = traced().filter(|e| e.kind == report::Kind::Dit).collect();
     let set: Vec<&Element> = if dits.len() >= 5 {
         dits
     } else {
-        elements.iter().collect()
+        traced().collect()
     };
     let len = set.iter().map(|e| e.trace.len()).min()?;
     if len < 8 || set.len() < 2 {

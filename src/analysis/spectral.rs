@@ -90,7 +90,6 @@ pub struct SpectralInput<'a> {
 
 /// Welch accumulator for one frame length.
 struct Welch {
-    n: usize,
     win: Vec<f32>,
     fft: Arc<dyn RealToComplex<f32>>,
     buf: Vec<f32>,
@@ -104,7 +103,6 @@ impl Welch {
     fn new(n: usize) -> Welch {
         let fft = RealFftPlanner::<f32>::new().plan_fft_forward(n);
         Welch {
-            n,
             win: hann(n),
             buf: fft.make_input_vec(),
             spec: fft.make_output_vec(),
@@ -127,10 +125,14 @@ impl Welch {
         }
     }
     fn add(&mut self, x: &[f32]) {
-        let mut p = vec![0.0; self.n / 2 + 1];
-        self.power(x, &mut p);
-        for (s, v) in self.sum.iter_mut().zip(&p) {
-            *s += v;
+        for ((b, v), w) in self.buf.iter_mut().zip(x).zip(&self.win) {
+            *b = v * w;
+        }
+        self.fft
+            .process_with_scratch(&mut self.buf, &mut self.spec, &mut self.scratch)
+            .expect("sizes from the plan");
+        for (s, v) in self.sum.iter_mut().zip(&self.spec) {
+            *s += v.norm_sqr() as f64;
         }
         self.frames += 1;
     }
@@ -255,40 +257,49 @@ pub fn spectral_pass(inp: &SpectralInput) -> Result<SpectralOutput> {
         if got == 0 {
             break;
         }
-        for &v in buf.iter().skip(inp.channel).step_by(nch) {
-            hist.push(v);
-            env_max = env_max.max(v.abs());
-            env_count += 1;
+        let old_len = hist.len();
+        if nch == 1 {
+            hist.extend_from_slice(&buf);
+        } else {
+            hist.extend(buf.iter().skip(inp.channel).step_by(nch).copied());
+        }
+        // Envelope buckets: the peak of every `bucket` samples.
+        let mut i = old_len;
+        while i < hist.len() {
+            let take = (bucket - env_count).min(hist.len() - i);
+            env_max = hist[i..i + take]
+                .iter()
+                .fold(env_max, |m, v| if v.abs() > m { v.abs() } else { m });
+            env_count += take;
+            i += take;
             if env_count == bucket {
-                let t = (hist_start + hist.len() as u64) as f64 / fsf;
+                let t = (hist_start + i as u64) as f64 / fsf;
                 envelope.push((t as f32, 20.0 * env_max.max(1e-7).log10()));
                 env_max = 0.0;
                 env_count = 0;
             }
         }
         let end = hist_start + hist.len() as u64;
-        let at = |hist: &Vec<f32>, a: u64, n: usize| -> Vec<f32> {
+        let at = |hist: &[f32], a: u64, n: usize| -> std::ops::Range<usize> {
             let i = (a - hist_start) as usize;
-            hist[i..i + n].to_vec()
+            let _ = &hist[i..i + n];
+            i..i + n
         };
         let t_last_i = (t_last * fsf) as u64;
         while next_main + n_main as u64 <= end.min(t_last_i.max(next_main + n_main as u64))
             && next_main < t_last_i
         {
-            let x = at(&hist, next_main, n_main);
-            w_main.add(&x);
+            w_main.add(&hist[at(&hist, next_main, n_main)]);
             next_main += n_main as u64 / 2;
         }
         while next_noise + n_noise as u64 <= end {
             if !busy(next_noise, next_noise + n_noise as u64, &mut el_idx) {
-                let x = at(&hist, next_noise, n_noise);
-                w_noise.add(&x);
+                w_noise.add(&hist[at(&hist, next_noise, n_noise)]);
             }
             next_noise += n_noise as u64 / 2;
         }
         while next_gram + n_gram as u64 <= end {
-            let x = at(&hist, next_gram, n_gram);
-            w_gram.power(&x, &mut gp);
+            w_gram.power(&hist[at(&hist, next_gram, n_gram)], &mut gp);
             for (c, p) in col_acc.iter_mut().zip(&gp[g_lo..=g_hi.min(gp.len() - 1)]) {
                 *c += p;
             }
@@ -308,11 +319,11 @@ pub fn spectral_pass(inp: &SpectralInput) -> Result<SpectralOutput> {
                 break;
             }
             if a >= hist_start {
-                let x = at(&hist, a, n_edge);
+                let x = &hist[at(&hist, a, n_edge)];
                 if rising {
-                    w_rise.add(&x);
+                    w_rise.add(x);
                 } else {
-                    w_fall.add(&x);
+                    w_fall.add(x);
                 }
             }
             next_edge += 1;

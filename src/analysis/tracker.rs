@@ -63,6 +63,27 @@ pub type ElementViews = (Vec<(f32, f32)>, Vec<f32>, Vec<f32>);
 /// fit's model choice, which the accuracy grid has not been re-run for.
 pub const TRACE_KEEP_STRIDE: usize = 1;
 
+/// Most trace points kept over the whole recording (8 bytes each, so 16 MiB).
+/// Past it, the elements keeping their traces are halved (see `trace_kept`):
+/// a long recording keeps full traces for an evenly spread sample of its
+/// elements, so memory stays bounded and each kept trace is still whole.
+/// At 20 WPM this holds every trace of about 11 minutes.
+pub const TRACE_POINTS_MAX: usize = 2 << 20;
+
+/// Does element `index` keep its trace at thinning level `level` (level 0:
+/// all of them; each level keeps half of the previous level's)? A hash of
+/// the index, not a stride, so the kept set cannot fall in step with a
+/// repeated text (every second element of "PARIS " would be the same ones).
+/// Elements kept at a level are also kept at every lower level.
+pub fn trace_kept(index: usize, level: u32) -> bool {
+    // SplitMix64 finaliser (Steele, Lea and Flood 2014).
+    let mut x = (index as u64).wrapping_add(0x9e37_79b9_7f4a_7c15);
+    x = (x ^ (x >> 30)).wrapping_mul(0xbf58_476d_1ce4_e5b9);
+    x = (x ^ (x >> 27)).wrapping_mul(0x94d0_49bb_1331_11eb);
+    x ^= x >> 31;
+    level == 0 || x.trailing_zeros() >= level
+}
+
 /// Grid of the edge pictures: from -15 ms to +15 ms of the 50 % instant.
 pub const EDGE_VIEW_FIRST_MS: f64 = -15.0;
 pub const EDGE_VIEW_STEP_MS: f64 = 0.25;
@@ -220,6 +241,9 @@ pub struct ToneTracker {
     mean_rise: EdgeAverage,
     mean_fall: EdgeAverage,
     hum: HumAcc,
+    /// Thinning level of the kept traces (`trace_kept`) and their points.
+    trace_level: u32,
+    trace_points: usize,
 }
 
 /// Settled key-down used for hum: this far inside the 90 % points, s.
@@ -269,6 +293,8 @@ impl ToneTracker {
             cut_open: false,
             mean_rise: EdgeAverage::new(s(MEAN_EDGE_HALF_S) as usize),
             mean_fall: EdgeAverage::new(s(MEAN_EDGE_HALF_S) as usize),
+            trace_level: 0,
+            trace_points: 0,
             fs_d,
             dc,
         }
@@ -357,7 +383,9 @@ impl ToneTracker {
                 self.run -= Complex64::new(old.re as f64, old.im as f64);
             }
             if head + 1 >= w {
-                let d = (self.run / w as f64).norm();
+                // sqrt of the squared magnitude: hypot guards against overflow
+                // that baseband samples of at most full scale cannot reach.
+                let d = (self.run / w as f64).norm_sqr().sqrt();
                 // det index = head - (w-1)/2
                 if self.det.is_empty() {
                     self.detbase = head - (w - 1) / 2;
@@ -516,6 +544,7 @@ impl ToneTracker {
         let rise_view = view(r.t50_rise, r.rise_samples.is_some());
         let fall_view = view(r.t50_fall, r.fall_samples.is_some());
         let settled = r.chirp.settled_hz;
+        let keep_trace = trace_kept(self.elements.len(), self.trace_level);
         self.elements.push(TrackedElement {
             start_s: ts(r.t50_rise),
             end_s: ts(r.t50_fall),
@@ -536,17 +565,39 @@ impl ToneTracker {
             chirp_raw_hz: r.chirp.raw_hz,
             chirp_noise_hz: r.chirp.noise_hz,
             cut,
-            trace: r
-                .trace
-                .t
-                .iter()
-                .zip(&r.trace.f)
-                .map(|(t, f)| (*t as f32, (f - settled) as f32))
-                .step_by(TRACE_KEEP_STRIDE)
-                .collect(),
+            trace: if keep_trace {
+                r.trace
+                    .t
+                    .iter()
+                    .zip(&r.trace.f)
+                    .map(|(t, f)| (*t as f32, (f - settled) as f32))
+                    .step_by(TRACE_KEEP_STRIDE)
+                    .collect()
+            } else {
+                Vec::new()
+            },
             rise_view,
             fall_view,
         });
+        let added = self.elements.last().map_or(0, |e| e.trace.len());
+        self.trace_points += added;
+        while self.trace_points > TRACE_POINTS_MAX {
+            self.thin_traces();
+        }
+    }
+
+    /// Halves the set of elements that keep their traces.
+    fn thin_traces(&mut self) {
+        self.trace_level += 1;
+        let mut points = 0;
+        for (i, e) in self.elements.iter_mut().enumerate() {
+            if trace_kept(i, self.trace_level) {
+                points += e.trace.len();
+            } else {
+                e.trace = Vec::new();
+            }
+        }
+        self.trace_points = points;
     }
 
     fn trim(&mut self) {

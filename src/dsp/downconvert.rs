@@ -391,11 +391,22 @@ impl Downconverter {
         let first = (self.m - 1) / self.d;
         let count = self.hop / self.d;
         out.reserve(count);
-        for mi in first..first + count {
+        // Remove the block-start mixing phase and the residual offset from
+        // the bin grid. The phase is linear in mi: the factor is advanced by
+        // a fixed rotation and recomputed exactly every 64 samples.
+        let phase = |mi: usize| {
             let n_abs = (base - hd + (mi * self.d) as i128) as f64;
-            // Remove the block-start mixing phase and the residual offset from the bin grid.
-            let ph = -2.0 * PI * (rot + self.residual_hz * n_abs / self.fs);
-            let c = Complex64::from_polar(scale, ph);
+            -2.0 * PI * (rot + self.residual_hz * n_abs / self.fs)
+        };
+        let turn =
+            Complex64::from_polar(1.0, -2.0 * PI * self.residual_hz * self.d as f64 / self.fs);
+        let mut c = Complex64::new(0.0, 0.0);
+        for mi in first..first + count {
+            c = if (mi - first).is_multiple_of(64) {
+                Complex64::from_polar(scale, phase(mi))
+            } else {
+                c * turn
+            };
             let v = self.narrow[mi];
             let z = Complex64::new(v.re as f64, v.im as f64) * c;
             out.push(Complex32::new(z.re as f32, z.im as f32));

@@ -9,6 +9,8 @@
 //! subtracted from the envelope's power so that noise does not lift the 10 %
 //! point.
 
+use std::cell::Cell;
+
 use rustfft::num_complex::{Complex32, Complex64};
 
 use super::levels::StateLevels;
@@ -33,12 +35,77 @@ pub fn gaussian_kernel(sigma: f64) -> Vec<f64> {
 /// Envelope of `z` smoothed by `kernel` (coherently, before the magnitude),
 /// with `noise_power` (per sample, unsmoothed) removed in the power domain.
 pub fn envelope(z: &[Complex32], kernel: &[f64], noise_power: f64) -> Vec<f64> {
-    let h = kernel.len() / 2;
-    let g: f64 = kernel.iter().map(|w| w * w).sum();
-    let pn = noise_power * g;
-    let n = z.len();
-    (0..n)
-        .map(|i| {
+    let e = LazyEnvelope::new(z, kernel, noise_power);
+    (0..z.len()).map(|i| e.compute(i)).collect()
+}
+
+/// Read access to an envelope: a plain slice, or one computed on demand.
+pub trait Env {
+    fn len(&self) -> usize;
+    fn at(&self, i: usize) -> f64;
+    fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+}
+
+impl Env for [f64] {
+    fn len(&self) -> usize {
+        <[f64]>::len(self)
+    }
+    fn at(&self, i: usize) -> f64 {
+        self[i]
+    }
+}
+
+impl Env for Vec<f64> {
+    fn len(&self) -> usize {
+        Vec::len(self)
+    }
+    fn at(&self, i: usize) -> f64 {
+        self[i]
+    }
+}
+
+/// The envelope of `envelope`, computed only at the samples an edge search
+/// reads (a few edge widths around the crossings) and remembered; each value
+/// is the same as `envelope` gives.
+pub struct LazyEnvelope<'a> {
+    z: &'a [Complex32],
+    kernel: &'a [f64],
+    /// Weight sum of the whole kernel, added in the same order as `compute`.
+    ws_full: f64,
+    /// Noise power after smoothing.
+    pn: f64,
+    cache: Vec<Cell<f64>>,
+}
+
+impl<'a> LazyEnvelope<'a> {
+    pub fn new(z: &'a [Complex32], kernel: &'a [f64], noise_power: f64) -> LazyEnvelope<'a> {
+        let g: f64 = kernel.iter().map(|w| w * w).sum();
+        LazyEnvelope {
+            z,
+            kernel,
+            ws_full: kernel.iter().fold(0.0, |s, w| s + w),
+            pn: noise_power * g,
+            // NaN marks "not computed yet": an envelope value is never NaN
+            // for finite samples.
+            cache: vec![Cell::new(f64::NAN); z.len()],
+        }
+    }
+
+    fn compute(&self, i: usize) -> f64 {
+        let (z, kernel) = (self.z, self.kernel);
+        let h = kernel.len() / 2;
+        let n = z.len();
+        let (acc, ws) = if i >= h && i + h < n {
+            // Whole kernel inside: no index checks in the loop.
+            let (mut re, mut im) = (0.0f64, 0.0f64);
+            for (w, zj) in kernel.iter().zip(&z[i - h..=i + h]) {
+                re += zj.re as f64 * w;
+                im += zj.im as f64 * w;
+            }
+            (Complex64::new(re, im), self.ws_full)
+        } else {
             let mut acc = Complex64::new(0.0, 0.0);
             let mut ws = 0.0;
             let a = i.saturating_sub(h);
@@ -48,19 +115,41 @@ pub fn envelope(z: &[Complex32], kernel: &[f64], noise_power: f64) -> Vec<f64> {
                 acc += Complex64::new(zj.re as f64, zj.im as f64) * w;
                 ws += w;
             }
-            let p = (acc / ws).norm_sqr() - pn;
-            p.max(0.0).sqrt()
-        })
-        .collect()
+            (acc, ws)
+        };
+        let p = (acc / ws).norm_sqr() - self.pn;
+        p.max(0.0).sqrt()
+    }
+}
+
+impl Env for LazyEnvelope<'_> {
+    fn len(&self) -> usize {
+        self.z.len()
+    }
+    fn at(&self, i: usize) -> f64 {
+        let c = &self.cache[i];
+        let v = c.get();
+        if !v.is_nan() {
+            return v;
+        }
+        let v = self.compute(i);
+        c.set(v);
+        v
+    }
 }
 
 /// Fractional index where `env` crosses `level` going up, searching
 /// backwards from `from` (the latest such crossing at or before it).
-pub fn rising_before(env: &[f64], from: usize, level: f64, stop: usize) -> Option<f64> {
+pub fn rising_before<E: Env + ?Sized>(
+    env: &E,
+    from: usize,
+    level: f64,
+    stop: usize,
+) -> Option<f64> {
     let mut i = from.min(env.len().saturating_sub(2));
     while i >= stop {
-        if env[i] < level && env[i + 1] >= level {
-            return Some(i as f64 + (level - env[i]) / (env[i + 1] - env[i]));
+        if env.at(i) < level && env.at(i + 1) >= level {
+            return Some(i as f64 + (level - env.at(i)) / (env.at(i + 1) - env.at(i)));
         }
         if i == 0 {
             break;
@@ -71,27 +160,37 @@ pub fn rising_before(env: &[f64], from: usize, level: f64, stop: usize) -> Optio
 }
 
 /// First upward crossing of `level` at or after `from`, before `stop`.
-pub fn rising_after(env: &[f64], from: usize, level: f64, stop: usize) -> Option<f64> {
+pub fn rising_after<E: Env + ?Sized>(env: &E, from: usize, level: f64, stop: usize) -> Option<f64> {
     let end = stop.min(env.len().saturating_sub(1));
     (from..end)
-        .find(|&i| env[i] < level && env[i + 1] >= level)
-        .map(|i| i as f64 + (level - env[i]) / (env[i + 1] - env[i]))
+        .find(|&i| env.at(i) < level && env.at(i + 1) >= level)
+        .map(|i| i as f64 + (level - env.at(i)) / (env.at(i + 1) - env.at(i)))
 }
 
 /// First downward crossing of `level` at or after `from`, before `stop`.
-pub fn falling_after(env: &[f64], from: usize, level: f64, stop: usize) -> Option<f64> {
+pub fn falling_after<E: Env + ?Sized>(
+    env: &E,
+    from: usize,
+    level: f64,
+    stop: usize,
+) -> Option<f64> {
     let end = stop.min(env.len().saturating_sub(1));
     (from..end)
-        .find(|&i| env[i] >= level && env[i + 1] < level)
-        .map(|i| i as f64 + (env[i] - level) / (env[i] - env[i + 1]))
+        .find(|&i| env.at(i) >= level && env.at(i + 1) < level)
+        .map(|i| i as f64 + (env.at(i) - level) / (env.at(i) - env.at(i + 1)))
 }
 
 /// Latest downward crossing of `level` at or before `from`, not before `stop`.
-pub fn falling_before(env: &[f64], from: usize, level: f64, stop: usize) -> Option<f64> {
+pub fn falling_before<E: Env + ?Sized>(
+    env: &E,
+    from: usize,
+    level: f64,
+    stop: usize,
+) -> Option<f64> {
     let mut i = from.min(env.len().saturating_sub(2));
     while i >= stop {
-        if env[i] >= level && env[i + 1] < level {
-            return Some(i as f64 + (env[i] - level) / (env[i] - env[i + 1]));
+        if env.at(i) >= level && env.at(i + 1) < level {
+            return Some(i as f64 + (env.at(i) - level) / (env.at(i) - env.at(i + 1)));
         }
         if i == 0 {
             break;
@@ -112,8 +211,8 @@ pub fn falling_before(env: &[f64], from: usize, level: f64, stop: usize) -> Opti
 /// a 10 % level at low SNR), `p_before` and `p_after` are the measured rates of
 /// wrong-side samples before and after the crossing; with T the occupancy,
 /// T = (t - a)(1 - p_b) + p_a (b - t) is solved for t.
-pub fn occupancy_crossing(
-    env: &[f64],
+pub fn occupancy_crossing<E: Env + ?Sized>(
+    env: &E,
     level: f64,
     w: (f64, f64),
     rising: bool,
@@ -133,7 +232,8 @@ pub fn occupancy_crossing(
         let s0 = (i as f64).max(a);
         let s1 = ((i + 1) as f64).min(b);
         if s1 > s0 {
-            let v = |x: f64| env[i] + (env[i + 1] - env[i]) * (x - i as f64);
+            let (e0, e1) = (env.at(i), env.at(i + 1));
+            let v = |x: f64| e0 + (e1 - e0) * (x - i as f64);
             let (v0, v1) = (v(s0), v(s1));
             occ += match (before(v0), before(v1)) {
                 (true, true) => s1 - s0,
@@ -156,15 +256,21 @@ pub fn occupancy_crossing(
 
 /// Share of samples in `lo..hi` on the wrong side of `level`: below it when
 /// `want_above`, else at or above it. 0 when the region is too short to say.
-fn wrong_side_rate(env: &[f64], level: f64, lo: f64, hi: f64, want_above: bool) -> f64 {
+fn wrong_side_rate<E: Env + ?Sized>(
+    env: &E,
+    level: f64,
+    lo: f64,
+    hi: f64,
+    want_above: bool,
+) -> f64 {
     let a = lo.max(0.0).ceil() as usize;
     let b = (hi.floor() as usize).min(env.len());
     if b < a + 10 {
         return 0.0;
     }
-    let wrong = env[a..b]
-        .iter()
-        .filter(|&&v| if want_above { v < level } else { v >= level })
+    let wrong = (a..b)
+        .map(|i| env.at(i))
+        .filter(|&v| if want_above { v < level } else { v >= level })
         .count();
     wrong as f64 / (b - a) as f64
 }
@@ -194,7 +300,13 @@ impl Edge {
 }
 
 /// Finds a rising edge around comparator index `near` within `lo..hi`.
-pub fn rise_edge(env: &[f64], lv: &StateLevels, near: usize, lo: usize, hi: usize) -> Option<Edge> {
+pub fn rise_edge<E: Env + ?Sized>(
+    env: &E,
+    lv: &StateLevels,
+    near: usize,
+    lo: usize,
+    hi: usize,
+) -> Option<Edge> {
     let t50 = rising_before(env, near, lv.at(0.5), lo)
         .or_else(|| rising_after(env, near, lv.at(0.5), hi))?;
     let i50 = t50.floor() as usize;
@@ -214,7 +326,13 @@ pub fn rise_edge(env: &[f64], lv: &StateLevels, near: usize, lo: usize, hi: usiz
 }
 
 /// Finds a falling edge around comparator index `near` within `lo..hi`.
-pub fn fall_edge(env: &[f64], lv: &StateLevels, near: usize, lo: usize, hi: usize) -> Option<Edge> {
+pub fn fall_edge<E: Env + ?Sized>(
+    env: &E,
+    lv: &StateLevels,
+    near: usize,
+    lo: usize,
+    hi: usize,
+) -> Option<Edge> {
     // The last time the envelope went below 50 % before the comparator
     // switched off; failing that, the first time after.
     let t50 = falling_before(env, near, lv.at(0.5), lo)
@@ -296,7 +414,7 @@ fn measure_edge_local(
     at: EdgeSearch,
     coarse_sigma: f64,
 ) -> Option<(Edge, f64)> {
-    let find = |env: &[f64]| {
+    let find = |env: &LazyEnvelope| {
         if at.rising {
             rise_edge(env, lv, at.near, at.lo, at.hi)
         } else {
@@ -304,7 +422,7 @@ fn measure_edge_local(
         }
     };
     let k0 = gaussian_kernel(coarse_sigma);
-    let env0 = envelope(z, &k0, noise_power);
+    let env0 = LazyEnvelope::new(z, &k0, noise_power);
     let coarse = find(&env0)?;
 
     let s0 = if k0.len() > 1 { coarse_sigma } else { 0.0 };
@@ -323,7 +441,7 @@ fn measure_edge_local(
     let slope_at = |t: f64| {
         let i0 = (t - d).max(0.0) as usize;
         let i1 = ((t + d) as usize).min(env0.len() - 1);
-        (env0[i1] - env0[i0]).abs() / ((i1 - i0).max(1) as f64) * w_est.max(1.0)
+        (env0.at(i1) - env0.at(i0)).abs() / ((i1 - i0).max(1) as f64) * w_est.max(1.0)
             / lv.high.max(1e-12)
     };
     let slope = slope_at(coarse.t10)
@@ -342,7 +460,7 @@ fn measure_edge_local(
     let edge = if k1.len() == k0.len() {
         coarse
     } else {
-        find(&envelope(z, &k1, noise_power)).unwrap_or(coarse)
+        find(&LazyEnvelope::new(z, &k1, noise_power)).unwrap_or(coarse)
     };
     Some((edge, edge.width()))
 }

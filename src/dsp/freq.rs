@@ -44,13 +44,24 @@ pub fn kay_weights(n: usize) -> Vec<f64> {
 /// Kay's estimate of the mean frequency (Hz) over `z[start..start+n]`, and
 /// the summed weight (amplitude squared) behind it.
 pub fn kay_frequency(z: &[Complex32], start: usize, w: &[f64], fs: f64) -> (f64, f64) {
+    let zs = &z[start..start + w.len() + 1];
+    let p: Vec<Complex64> = zs
+        .windows(2)
+        .map(|pair| lag_product(pair[0], pair[1]))
+        .collect();
+    kay_from_products(&p, w, fs)
+}
+
+/// z[n] z*[n-1] in double precision, for `b` = z[n-1] and `a` = z[n].
+fn lag_product(b: Complex32, a: Complex32) -> Complex64 {
+    Complex64::new(a.re as f64, a.im as f64) * Complex64::new(b.re as f64, -b.im as f64)
+}
+
+/// Kay's estimate from lag-one products already formed (`p.len() == w.len()`).
+fn kay_from_products(p: &[Complex64], w: &[f64], fs: f64) -> (f64, f64) {
     let mut acc = Complex64::new(0.0, 0.0);
-    for (k, wk) in w.iter().enumerate() {
-        let a = z[start + k + 1];
-        let b = z[start + k];
-        let p =
-            Complex64::new(a.re as f64, a.im as f64) * Complex64::new(b.re as f64, -b.im as f64);
-        acc += p * *wk;
+    for (pk, wk) in p.iter().zip(w) {
+        acc += pk * *wk;
     }
     (acc.arg() * fs / (2.0 * PI), acc.norm())
 }
@@ -74,29 +85,62 @@ pub fn trace(z: &[Complex32], fs: f64, t50r: f64, t50f: f64) -> Trace {
     // Only the stretch the Kay windows will read needs filtering.
     let lo = (t50r - n as f64).max(0.0) as usize;
     let hi = ((t50f + n as f64 + 2.0) as usize).min(z.len());
-    let zf: Vec<Complex32> = (0..z.len())
-        .map(|i| {
-            if i < lo || i >= hi {
-                return Complex32::new(0.0, 0.0);
+    let mut zf = vec![Complex32::new(0.0, 0.0); z.len()];
+    // Where the whole kernel fits: tap by tap over all outputs at once, a
+    // loop the compiler vectorizes; each output still adds its taps in
+    // kernel order, so the sums are the same as one output at a time.
+    let (a, b) = (lo.max(h), hi.min(z.len().saturating_sub(h)));
+    if a < b {
+        let m = b - a;
+        let src_re: Vec<f64> = z[a - h..b + h].iter().map(|v| v.re as f64).collect();
+        let src_im: Vec<f64> = z[a - h..b + h].iter().map(|v| v.im as f64).collect();
+        let mut re = vec![0.0f64; m];
+        let mut im = vec![0.0f64; m];
+        for (j, &w) in k.iter().enumerate() {
+            for (o, v) in re.iter_mut().zip(&src_re[j..j + m]) {
+                *o += v * w;
             }
-            let mut acc = Complex64::new(0.0, 0.0);
-            for (j, w) in k.iter().enumerate() {
-                if let Some(v) = (i + j).checked_sub(h).and_then(|q| z.get(q)) {
-                    acc += Complex64::new(v.re as f64, v.im as f64) * *w;
-                }
+            for (o, v) in im.iter_mut().zip(&src_im[j..j + m]) {
+                *o += v * w;
             }
-            Complex32::new(acc.re as f32, acc.im as f32)
-        })
-        .collect();
+        }
+        for ((o, r), i) in zf[a..b].iter_mut().zip(&re).zip(&im) {
+            *o = Complex32::new(*r as f32, *i as f32);
+        }
+    }
+    // The few outputs near the ends of `z`, with a partial kernel.
+    for (i, o) in zf.iter_mut().enumerate().take(hi).skip(lo) {
+        if i >= a && i < b {
+            continue;
+        }
+        let mut acc = Complex64::new(0.0, 0.0);
+        for (j, w) in k.iter().enumerate() {
+            if let Some(v) = (i + j).checked_sub(h).and_then(|q| z.get(q)) {
+                acc += Complex64::new(v.re as f64, v.im as f64) * *w;
+            }
+        }
+        *o = Complex32::new(acc.re as f32, acc.im as f32);
+    }
     let z = &zf[..];
     let w = kay_weights(n);
+    // Lag-one products over the filtered stretch, formed once: trace points
+    // are closer than a window, so each product serves several windows.
+    let p_lo = lo.min(z.len());
+    let p_hi = hi.min(z.len().saturating_sub(1)).max(p_lo);
+    let prod: Vec<Complex64> = (p_lo..p_hi).map(|i| lag_product(z[i], z[i + 1])).collect();
     let step = TRACE_STEP_S * fs;
     let mut out = Trace::default();
     let mut c = t50r;
     while c <= t50f {
         let start = (c - (n as f64 - 1.0) / 2.0).round();
         if start >= 0.0 && (start as usize) + n <= z.len() {
-            let (f, wt) = kay_frequency(z, start as usize, &w, fs);
+            let s0 = start as usize;
+            // Windows inside the filtered stretch read the shared products.
+            let (f, wt) = if s0 >= p_lo && s0 + w.len() <= p_hi {
+                kay_from_products(&prod[s0 - p_lo..s0 - p_lo + w.len()], &w, fs)
+            } else {
+                kay_frequency(z, s0, &w, fs)
+            };
             out.t.push((c - t50r) / fs);
             out.f.push(f);
             out.w.push(wt);
@@ -125,7 +169,7 @@ pub struct ChirpFit {
 
 /// Solves the k x k normal equations (k <= 3) by Gaussian elimination with
 /// partial pivoting; None when singular.
-fn solve(a: [[f64; 3]; 3], b: [f64; 3], k: usize) -> Option<Vec<f64>> {
+fn solve(a: [[f64; 3]; 3], b: [f64; 3], k: usize) -> Option<[f64; 3]> {
     let mut m = a;
     let mut v = b;
     for p in 0..k {
@@ -144,7 +188,7 @@ fn solve(a: [[f64; 3]; 3], b: [f64; 3], k: usize) -> Option<Vec<f64>> {
             v[r] -= f * v[p];
         }
     }
-    let mut beta = vec![0.0; k];
+    let mut beta = [0.0; 3];
     for p in (0..k).rev() {
         let mut s = v[p];
         for c in p + 1..k {
@@ -175,8 +219,11 @@ fn model_cols(model: u8) -> usize {
 }
 
 /// Weighted least squares of one model on (t, f, w); returns (RSS, beta).
+/// The plain one-model-at-a-time fit; `FitData` is the fast path and is
+/// checked against this.
 /// Normal equations are accumulated in one pass without allocation, and the
 /// residual comes from RSS = sum(w y^2) - beta . X'Wy.
+#[cfg(test)]
 fn fit_model(
     model: u8,
     tau: f64,
@@ -184,7 +231,7 @@ fn fit_model(
     f: &[f64],
     w: &[f64],
     mid: f64,
-) -> Option<(f64, Vec<f64>)> {
+) -> Option<(f64, [f64; 3])> {
     let k = model_cols(model);
     let mut a = [[0.0f64; 3]; 3];
     let mut v = [0.0f64; 3];
@@ -227,6 +274,138 @@ fn fit_model(
     Some((rss.max(0.0), beta))
 }
 
+/// The fit of `fit_model` with the sums that do not depend on the time
+/// constant taken once per trace: each further time constant then costs one
+/// pass of four products per point instead of a full normal-equation build.
+/// The sums are the same products in the same order as `fit_model`'s, so
+/// the results agree to rounding.
+struct FitData<'a> {
+    t: &'a [f64],
+    f: &'a [f64],
+    w: &'a [f64],
+    mid: f64,
+    uniform: bool,
+    /// sum w, sum w x, sum w x x, sum w y, sum w x y, sum w y y (x = t - mid).
+    sw: f64,
+    swx: f64,
+    swxx: f64,
+    swy: f64,
+    swxy: f64,
+    swyy: f64,
+}
+
+/// Sums with the exponential term e = exp(-t / tau).
+#[derive(Clone, Copy)]
+struct ExpSums {
+    swe: f64,
+    swee: f64,
+    swxe: f64,
+    swex: f64,
+    swey: f64,
+}
+
+impl<'a> FitData<'a> {
+    fn new(t: &'a [f64], f: &'a [f64], w: &'a [f64], mid: f64) -> FitData<'a> {
+        let uniform = t.len() > 2 && ((t[2] - t[1]) - (t[1] - t[0])).abs() < 1e-12;
+        let mut d = FitData {
+            t,
+            f,
+            w,
+            mid,
+            uniform,
+            sw: 0.0,
+            swx: 0.0,
+            swxx: 0.0,
+            swy: 0.0,
+            swxy: 0.0,
+            swyy: 0.0,
+        };
+        for ((&x, &yi), &wi) in t.iter().zip(f).zip(w) {
+            let x = x - mid;
+            d.sw += wi;
+            d.swx += wi * x;
+            d.swxx += wi * x * x;
+            d.swy += wi * yi;
+            d.swxy += wi * x * yi;
+            d.swyy += wi * yi * yi;
+        }
+        d
+    }
+
+    fn exp_sums(&self, tau: f64) -> ExpSums {
+        let t = self.t;
+        let step = if t.len() > 1 {
+            (-(t[1] - t[0]) / tau).exp()
+        } else {
+            0.0
+        };
+        let mut s = ExpSums {
+            swe: 0.0,
+            swee: 0.0,
+            swxe: 0.0,
+            swex: 0.0,
+            swey: 0.0,
+        };
+        let mut e = 0.0;
+        for (i, ((&x, &yi), &wi)) in t.iter().zip(self.f).zip(self.w).enumerate() {
+            e = if !self.uniform || i % 64 == 0 {
+                (-x / tau).exp()
+            } else {
+                e * step
+            };
+            let xm = x - self.mid;
+            let we = wi * e;
+            s.swe += we;
+            s.swee += we * e;
+            s.swxe += wi * xm * e;
+            s.swex += we * xm;
+            s.swey += we * yi;
+        }
+        s
+    }
+
+    /// (RSS, beta) of `model`; `e` must hold the sums for the model's tau
+    /// when the model has an exponential term.
+    fn fit(&self, model: u8, e: Option<&ExpSums>) -> Option<(f64, [f64; 3])> {
+        let k = model_cols(model);
+        let mut a = [[0.0f64; 3]; 3];
+        let mut v = [0.0f64; 3];
+        a[0][0] = self.sw;
+        v[0] = self.swy;
+        match (model, e) {
+            (0, _) => {}
+            (1, _) => {
+                a[0][1] = self.swx;
+                a[1][0] = self.swx;
+                a[1][1] = self.swxx;
+                v[1] = self.swxy;
+            }
+            (2, Some(e)) => {
+                a[0][1] = e.swe;
+                a[1][0] = e.swe;
+                a[1][1] = e.swee;
+                v[1] = e.swey;
+            }
+            (_, Some(e)) => {
+                a[0][1] = self.swx;
+                a[1][0] = self.swx;
+                a[1][1] = self.swxx;
+                a[0][2] = e.swe;
+                a[2][0] = e.swe;
+                a[1][2] = e.swxe;
+                a[2][1] = e.swex;
+                a[2][2] = e.swee;
+                v[1] = self.swxy;
+                v[2] = e.swey;
+            }
+            _ => return None,
+        }
+        let beta = solve(a, v, k)?;
+        let rss = self.swyy - (0..k).map(|p| beta[p] * v[p]).sum::<f64>();
+        Some((rss.max(0.0), beta))
+    }
+}
+
 /// Points of the trace used for fitting: every other one (the trace is
 /// sampled several times per window, so this loses nothing but time).
 const FIT_STRIDE: usize = 2;
@@ -266,30 +445,39 @@ pub fn chirp(tr: &Trace) -> ChirpFit {
     let n_eff = (dur / TRACE_WINDOW_S).max(2.0);
     let score = |rss: f64, k: f64| n_eff * (rss.max(1e-18) / m as f64).ln() + k * 2.0;
 
-    // (score, model, tau, beta)
-    let mut best: (f64, u8, f64, Vec<f64>) = (f64::INFINITY, 0, 0.0, vec![]);
+    // (score, model, tau, beta); model u8::MAX: no fit yet.
+    let data = FitData::new(&t, &f, &w, mid);
+    let mut best: (f64, u8, f64, [f64; 3]) = (f64::INFINITY, u8::MAX, 0.0, [0.0; 3]);
     for model in [0u8, 1] {
-        if let Some((rss, beta)) = fit_model(model, 0.0, &t, &f, &w, mid) {
+        if let Some((rss, beta)) = data.fit(model, None) {
             let sc = score(rss, model_cols(model) as f64);
             if sc < best.0 {
                 best = (sc, model, 0.0, beta);
             }
         }
     }
+    // Coarse grid of time constants (shared by both exponential models),
+    // then golden-section refinement for each.
+    let mut grid: Vec<(f64, ExpSums)> = Vec::with_capacity(24);
+    let mut tau = 0.000_5;
+    while tau <= 0.3 && tau <= 3.0 * dur {
+        grid.push((tau, data.exp_sums(tau)));
+        tau *= 1.35;
+    }
     for model in [2u8, 3] {
         let k = model_cols(model) as f64 + 1.0; // the time constant is a parameter too
-        let eval =
-            |tau: f64| fit_model(model, tau, &t, &f, &w, mid).map(|(rss, b)| (score(rss, k), b));
-        // Coarse grid of time constants, then golden-section refinement.
+        let eval = |tau: f64| {
+            data.fit(model, Some(&data.exp_sums(tau)))
+                .map(|(rss, b)| (score(rss, k), b))
+        };
         let mut grid_best: Option<(f64, f64)> = None;
-        let mut tau = 0.000_5;
-        while tau <= 0.3 && tau <= 3.0 * dur {
-            if let Some((sc, _)) = eval(tau) {
+        for (tau, es) in &grid {
+            if let Some((rss, _)) = data.fit(model, Some(es)) {
+                let sc = score(rss, k);
                 if grid_best.is_none_or(|g| sc < g.0) {
-                    grid_best = Some((sc, tau));
+                    grid_best = Some((sc, *tau));
                 }
             }
-            tau *= 1.35;
         }
         let Some((_, t0)) = grid_best else { continue };
         let (mut a, mut b) = ((t0 / 1.35).ln(), (t0 * 1.35).ln());
@@ -319,7 +507,7 @@ pub fn chirp(tr: &Trace) -> ChirpFit {
             }
         }
     }
-    if best.3.is_empty() {
+    if best.1 == u8::MAX {
         return ChirpFit {
             settled_hz: settled_raw,
             raw_hz: raw,
@@ -331,7 +519,7 @@ pub fn chirp(tr: &Trace) -> ChirpFit {
         tr.t.iter()
             .map(|&x| {
                 let r = basis(model_id, tau, x, mid);
-                (0..beta.len()).map(|c| beta[c] * r[c]).sum()
+                (0..model_cols(model_id)).map(|c| beta[c] * r[c]).sum()
             })
             .collect();
     let mv: Vec<f64> = half.iter().map(|&i| model[i]).collect();
@@ -368,6 +556,38 @@ mod tests {
                 Complex32::new(ph.cos() as f32, ph.sin() as f32)
             })
             .collect()
+    }
+
+    #[test]
+    fn shared_sums_fit_equals_the_plain_fit() {
+        // Fast path against the slow obvious one: same products in the same
+        // order, so RSS and coefficients agree to rounding (1e-12 relative).
+        let n = 301;
+        let t: Vec<f64> = (0..n).map(|i| i as f64 * 0.000_5).collect();
+        let f: Vec<f64> = t
+            .iter()
+            .enumerate()
+            .map(|(i, &x)| {
+                4.0 + 25.0 * (-x / 0.01).exp() + 3.0 * x + ((i * 7919) % 13) as f64 * 0.1
+            })
+            .collect();
+        let w: Vec<f64> = (0..n).map(|i| 0.5 + ((i * 31) % 7) as f64 * 0.1).collect();
+        let mid = t[n - 1] / 2.0;
+        let d = FitData::new(&t, &f, &w, mid);
+        for model in 0..4u8 {
+            for tau in [0.0007, 0.004, 0.02, 0.1] {
+                let slow = fit_model(model, tau, &t, &f, &w, mid).unwrap();
+                let es = d.exp_sums(tau);
+                let fast = d.fit(model, Some(&es)).unwrap();
+                assert!(
+                    (slow.0 - fast.0).abs() <= 1e-12 * slow.0.abs().max(1.0),
+                    "{model} {tau}"
+                );
+                for c in 0..model_cols(model) {
+                    assert!((slow.1[c] - fast.1[c]).abs() <= 1e-12 * slow.1[c].abs().max(1.0));
+                }
+            }
+        }
     }
 
     #[test]

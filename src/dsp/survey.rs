@@ -75,6 +75,35 @@ struct Chan {
     stats: ChannelStats,
 }
 
+/// Adds peak, clipped count and sum of squares of `x` to `st`. Eight
+/// running partial sums and plain compare-and-select keep the loop free of
+/// serial dependencies, so the compiler vectorizes it.
+fn sample_stats(x: &[f32], st: &mut ChannelStats) {
+    let mut peak = [0f32; 8];
+    let mut clipped = [0u32; 8];
+    let mut sq = [0f64; 8];
+    let mut chunks = x.chunks_exact(8);
+    for ch in &mut chunks {
+        for k in 0..8 {
+            let a = ch[k].abs();
+            peak[k] = if a > peak[k] { a } else { peak[k] };
+            clipped[k] += (a >= CLIP_LEVEL) as u32;
+            sq[k] += (ch[k] as f64) * (ch[k] as f64);
+        }
+    }
+    for &v in chunks.remainder() {
+        let a = v.abs();
+        peak[0] = if a > peak[0] { a } else { peak[0] };
+        clipped[0] += (a >= CLIP_LEVEL) as u32;
+        sq[0] += (v as f64) * (v as f64);
+    }
+    for k in 0..8 {
+        st.peak_abs = st.peak_abs.max(peak[k] as f64);
+        st.clipped_samples += clipped[k] as u64;
+        st.sum_sq += sq[k];
+    }
+}
+
 /// Streaming survey; push interleaved blocks, then `finish`.
 pub struct Survey {
     fs: u32,
@@ -125,28 +154,28 @@ impl Survey {
     pub fn push(&mut self, interleaved: &[f32]) {
         let nc = self.chans.len();
         for (c, ch) in self.chans.iter_mut().enumerate() {
-            for &x in interleaved.iter().skip(c).step_by(nc) {
-                ch.pending.push(x);
-                let a = x.abs();
-                ch.stats.peak_abs = ch.stats.peak_abs.max(a as f64);
-                if a >= CLIP_LEVEL {
-                    ch.stats.clipped_samples += 1;
-                }
-                ch.stats.sum_sq += (x as f64) * (x as f64);
+            let old = ch.pending.len();
+            if nc == 1 {
+                ch.pending.extend_from_slice(interleaved);
+            } else {
+                ch.pending
+                    .extend(interleaved.iter().skip(c).step_by(nc).copied());
             }
+            sample_stats(&ch.pending[old..], &mut ch.stats);
             ch.stats.samples += (interleaved.len() / nc) as u64;
             let mut start = 0;
             while ch.pending.len() - start >= self.nfft {
-                for (i, b) in self.buf.iter_mut().enumerate() {
-                    *b = ch.pending[start + i] * self.win[i];
+                let frame = &ch.pending[start..start + self.nfft];
+                for ((b, x), w) in self.buf.iter_mut().zip(frame).zip(&self.win) {
+                    *b = x * w;
                 }
                 self.fft
                     .process_with_scratch(&mut self.buf, &mut self.spec, &mut self.scratch)
                     .expect("buffer sizes come from the plan");
-                for (k, s) in self.spec.iter().enumerate() {
+                for ((s, sp), sp2) in self.spec.iter().zip(&mut ch.sum_p).zip(&mut ch.sum_p2) {
                     let p = s.norm_sqr() as f64;
-                    ch.sum_p[k] += p;
-                    ch.sum_p2[k] += p * p;
+                    *sp += p;
+                    *sp2 += p * p;
                 }
                 ch.frames += 1;
                 start += self.hop;
