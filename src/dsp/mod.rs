@@ -5,6 +5,7 @@
 //! levels → IEEE 181 state levels; segment → elements (hysteresis);
 //! edges, freq → rise/fall and chirp of one element.
 
+pub mod background;
 pub mod downconvert;
 pub mod edges;
 pub mod freq;
