@@ -376,5 +376,68 @@ fn main() {
             }
         }
     }
+    if want("txrx") {
+        fails += txrx_section(dir.path());
+    }
     println!("\nCases outside their tolerance: {fails}");
+}
+
+/// Transmit/receive timing (`cwaudit timing`) against the synthesizer's
+/// truth: delay, fall delay, first-element shortening, receive recovery.
+fn txrx_section(dir: &std::path::Path) -> usize {
+    use cwaudit::accuracy_txrx::{run_timing_case, timing_base, RECOVERY_TOL_MS, TIMING_TOL_MS};
+    use cwaudit::analysis::txrx::TimingOptions;
+    println!("\n### Transmit/receive timing (two channels)\n");
+    println!("\"TEST DE\" in 3 transmissions of 10 elements, 3 s apart, 20 WPM. Key channel: 600 Hz sidetone at -12 dBFS,");
+    println!("3 ms edges, receiver background (white noise) -40 dBFS muted by 40 dB, 5 ms release. RF channel: 700 Hz,");
+    println!("5 ms raised-cosine edges, SNR in 2.5 kHz as given. Tolerance: {TIMING_TOL_MS} ms on delay, fall delay and");
+    println!("shortening, {RECOVERY_TOL_MS} ms on the recovery (issue 4); all elements paired.\n");
+    println!("| delay / fall delay / shortening / hang ms | SNR dB | truth recovery ms | delay ms | fall delay ms | shortening ms | recovery ms | errors ms (delay, fall, short., recov.) | transmissions | paired | within |");
+    println!("|---|---|---|---|---|---|---|---|---|---|---|");
+    let mut cases: Vec<(f64, Option<f64>, f64, f64, f64)> = Vec::new();
+    for d in [0.0, 10.0, 30.0] {
+        for sh in [0.0, 20.0] {
+            for hang in [50.0, 500.0] {
+                cases.push((d, None, sh, hang, 30.0));
+            }
+        }
+    }
+    for snr in [15.0, 20.0] {
+        cases.push((10.0, None, 5.0, 200.0, snr));
+        cases.push((25.0, Some(15.0), 15.0, 100.0, snr));
+    }
+    cases.push((5.0, Some(12.0), 8.0, 300.0, 30.0));
+    let mut fails = 0;
+    for (i, &(d, fd, sh, hang, snr)) in cases.iter().enumerate() {
+        let mut s = timing_base(d, sh, hang, snr);
+        s.seed = 500 + i as u64;
+        s.txrx.as_mut().expect("timing spec").fall_delay_ms = fd;
+        let c = run_timing_case(&s, dir, "txrx", &TimingOptions::default()).expect("case runs");
+        let t = &c.report.timing;
+        let e = c.errors_ms();
+        let good = c.within();
+        if !good {
+            fails += 1;
+        }
+        let v = |x: Option<f64>, p: usize| x.map_or("-".to_string(), |x| format!("{x:.p$}"));
+        println!(
+            "| {d} / {} / {sh} / {hang} | {snr} | {:.1} | {} | {} | {} | {} | {:+.2}, {:+.2}, {:+.2}, {:+.1} | {}/{} | {}/{} | {} |",
+            fd.unwrap_or(d),
+            c.truth.rx_recovery_ms,
+            v(t.delay_ms, 2),
+            v(t.fall_delay_ms, 2),
+            v(t.first_element_shortening_ms, 2),
+            v(t.rx_recovery_ms, 1),
+            e[0],
+            e[1],
+            e[2],
+            e[3],
+            t.transmissions,
+            c.truth.transmissions.len(),
+            c.report.pairing.paired,
+            c.truth.key_elements.len(),
+            ok(good)
+        );
+    }
+    fails
 }
