@@ -440,6 +440,13 @@ fn sox_made_recording_delay_and_recovery() {
     );
     let v: Value = serde_json::from_slice(&out.stdout).unwrap();
     let g = |k: &str| v["timing"][k].as_f64().unwrap_or(f64::NAN);
+    eprintln!(
+        "sox recording: delay {:.3} ms, fall delay {:.3} ms, shortening {:.3} ms, recovery {:.2} ms",
+        g("delay_ms"),
+        g("fall_delay_ms"),
+        g("first_element_shortening_ms"),
+        g("rx_recovery_ms")
+    );
     assert_eq!(v["timing"]["transmissions"], 2);
     assert_eq!(v["pairing"]["paired"], 16);
     assert!((g("delay_ms") - 12.5).abs() <= 1.0, "{v}");
