@@ -122,14 +122,14 @@ impl BackgroundMeter {
             self.sum += p - self.ring[self.pos];
             self.ring[self.pos] = p;
             self.pos = (self.pos + 1) % w;
+            if self.pos == 0 {
+                // Re-sum once per window so rounding cannot accumulate.
+                self.sum = self.ring.iter().sum();
+            }
             self.n += 1;
             self.since += 1;
             if self.since >= self.hop && self.n >= w as u64 {
                 self.since = 0;
-                if self.n % (1 << 16) == 0 {
-                    // Re-sum now and then so rounding cannot accumulate.
-                    self.sum = self.ring.iter().sum();
-                }
                 let centre = (self.n as f64 - 1.0 - (w as f64 - 1.0) / 2.0) / self.fs;
                 out.push((centre, (self.sum / w as f64).max(0.0)));
             }
