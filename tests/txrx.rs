@@ -278,6 +278,14 @@ fn binary_errors() {
             vec![dir.path().join("missing.wav").display().to_string()],
             "missing.wav",
         ),
+        (
+            vec![
+                two.display().to_string(),
+                "--key-tone".into(),
+                "30000".into(),
+            ],
+            "half the sample rate",
+        ),
     ];
     for (args, needle) in cases {
         let out = cwaudit().arg("timing").args(&args).output().unwrap();

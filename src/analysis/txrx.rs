@@ -528,6 +528,20 @@ pub fn analyze_timing(path: &Path, opt: &TimingOptions) -> Result<TimingReport> 
     }
     let (kc, rc) = (opt.key_channel as usize - 1, opt.rf_channel as usize - 1);
     let fs = info.sample_rate_hz;
+    for (name, v) in [
+        ("--key-tone", opt.key_tone_hz),
+        ("--rf-tone", opt.rf_tone_hz),
+    ] {
+        if let Some(f) = v {
+            if !(f > 0.0 && f < 0.5 * fs as f64) {
+                return Err(CwError::Usage(format!(
+                    "{}: {name} {f} Hz is not between 0 Hz and half the sample rate ({} Hz)",
+                    path.display(),
+                    fs / 2
+                )));
+            }
+        }
+    }
 
     // Pass 1: survey.
     let mut survey = Survey::new(fs, nch);
@@ -551,7 +565,7 @@ pub fn analyze_timing(path: &Path, opt: &TimingOptions) -> Result<TimingReport> 
         CwError::input(
             path,
             format!(
-                "no keyed tone on the key channel (channel {}); it must carry the sidetone or a keyed audio tone (a DC keying voltage is not supported)",
+                "no keyed tone on the key channel (channel {}); it must carry the sidetone or a keyed audio tone (a DC keying voltage is not supported: sound-card inputs are AC-coupled and do not hold a DC level)",
                 opt.key_channel
             ),
         )
@@ -715,6 +729,12 @@ fn warnings(
                 "The {name} channel clips ({n} samples at full scale): lower its recording level; its edges and instants are wrong where it clips."
             ));
         }
+    }
+    if 2 * p.paired < p.key_elements.min(p.rf_elements) {
+        w.push(format!(
+            "Only {} of {} key elements found an RF partner: check the channels (--key-channel, --rf-channel) and the tones (--key-tone, --rf-tone); the figures below are not trustworthy.",
+            p.paired, p.key_elements
+        ));
     }
     if p.unpaired_key > 0 {
         w.push(format!(
