@@ -404,6 +404,69 @@ mod tests {
         assert!((p.muting.gain(last_fall + 0.121) - 1.0).abs() < 1e-12);
     }
 
+    /// The rendered file against the plan: the first non-zero sample of
+    /// each channel where the plan says the envelope leaves zero, and the
+    /// background's mean square before, during and after the muting.
+    #[test]
+    fn rendered_channels_follow_the_plan() {
+        let spec = crate::synth::SynthSpec {
+            text: "EE".into(),
+            channels: 2,
+            lead_in_s: 0.5,
+            tail_s: 0.6,
+            txrx: Some(TxRxSpec {
+                delay_ms: 20.0,
+                first_shortening_ms: 10.0,
+                transmissions: 1,
+                background_dbfs: -40.0,
+                hang_ms: 100.0,
+                ..Default::default()
+            }),
+            ..Default::default()
+        };
+        let (x, truth) = crate::synth::render(&spec).unwrap();
+        let t = truth.txrx.unwrap();
+        let fs = 48_000.0;
+        let rf: Vec<f32> = x.iter().skip(1).step_by(2).copied().collect();
+        let key: Vec<f32> = x.iter().step_by(2).copied().collect();
+        // RF: silent (no noise) until its first element leaves zero: key
+        // 50 % rise + delay + shortening - half the 5 ms raised cosine's
+        // span (5 ms / 0.5903 / 2).
+        let first_rf = rf.iter().position(|v| *v != 0.0).unwrap() as f64 / fs;
+        let lead = 0.005 / 0.590_334_470_601_733_2 / 2.0;
+        let want = t.key_elements[0].start_s + 0.030 - lead;
+        assert!((first_rf - want).abs() < 2.0 / fs, "{first_rf} {want}");
+        // Key channel background: mean square over 50 ms stretches.
+        let ms = |a: f64| {
+            let i = (a * fs) as usize;
+            key[i..i + 2400]
+                .iter()
+                .map(|v| (*v as f64).powi(2))
+                .sum::<f64>()
+                / 2400.0
+        };
+        let full = 0.5 * 1e-4; // -40 dBFS: half of 10^(-40/10)
+        let first = t.transmissions[0].start_s;
+        let end = t.transmissions[0].end_s;
+        assert!((10.0 * (ms(0.1) / full).log10()).abs() < 0.3);
+        // Muted by 40 dB in a key-up gap of the transmission (the sidetone
+        // is off between the two dits: 60 ms gap, 3 ms edges).
+        let gap = t.key_elements[0].start_s + t.key_elements[0].duration_s + 0.01;
+        let i = (gap * fs) as usize;
+        let muted = key[i..i + 1920]
+            .iter()
+            .map(|v| (*v as f64).powi(2))
+            .sum::<f64>()
+            / 1920.0;
+        assert!(
+            (10.0 * (muted / full).log10() + 40.0).abs() < 0.5,
+            "{muted}"
+        );
+        assert!(first < gap && gap < end);
+        // Back after hang + release.
+        assert!((10.0 * (ms(end + 0.2) / full).log10()).abs() < 0.3);
+    }
+
     #[test]
     fn refuses_what_cannot_be_made() {
         let e = (EdgeShape::RaisedCosine, 0.004);
