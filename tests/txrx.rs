@@ -298,6 +298,94 @@ fn binary_errors() {
     }
 }
 
+/// The malformed and unusual files of the fuzz corpus through `timing`:
+/// measured (exit 0) or refused in one sentence (exit 2), never a panic.
+#[test]
+fn fuzz_corpus_never_panics() {
+    let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("fuzz/corpus/wav_analyze");
+    let mut n = 0;
+    for e in std::fs::read_dir(&dir).unwrap() {
+        let p = e.unwrap().path();
+        let out = cwaudit()
+            .arg("timing")
+            .arg(&p)
+            .timeout(std::time::Duration::from_secs(120))
+            .output()
+            .unwrap();
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert!(!err.contains("panicked"), "{}: {err}", p.display());
+        match out.status.code() {
+            Some(0) => {}
+            Some(2) => assert_eq!(err.trim_end().lines().count(), 1, "{}: {err}", p.display()),
+            c => panic!("{}: exit {c:?}: {err}", p.display()),
+        }
+        n += 1;
+    }
+    assert!(n >= 10, "corpus has {n} files");
+}
+
+/// Random two-channel recordings (lengths from one frame to 2 s, noise,
+/// random keyed bursts, full-scale clipping) through the library: a report
+/// or an error, never a panic, and no figure that is not finite.
+#[test]
+fn random_recordings_never_panic() {
+    use rand::{RngExt, SeedableRng};
+    let dir = tempfile::tempdir().unwrap();
+    let mut rng = rand_xoshiro::Xoshiro256PlusPlus::seed_from_u64(5);
+    let mut measured = 0;
+    for k in 0..24 {
+        let frames = [1usize, 7, 480, 4800, 48_000, 96_000][k % 6];
+        let p = dir.path().join(format!("r{k}.wav"));
+        let spec = hound::WavSpec {
+            channels: 2,
+            sample_rate: 48_000,
+            bits_per_sample: 16,
+            sample_format: hound::SampleFormat::Int,
+        };
+        let mut w = hound::WavWriter::create(&p, spec).unwrap();
+        let noise: f64 = rng.random_range(0.0..0.3);
+        let gain: f64 = rng.random_range(0.0..1.5);
+        let period = rng.random_range(500..20_000usize);
+        for n in 0..frames {
+            for c in 0..2 {
+                let on = (n / period + c) % 2 == 0;
+                let tone = if on {
+                    gain * (n as f64 * 0.08 * (c + 1) as f64).sin()
+                } else {
+                    0.0
+                };
+                let v = tone + noise * rng.random_range(-1.0..1.0);
+                w.write_sample((v.clamp(-1.0, 1.0) * 32767.0) as i16)
+                    .unwrap();
+            }
+        }
+        w.finalize().unwrap();
+        let res = cwaudit::analysis::txrx::analyze_timing(&p, &TimingOptions::default());
+        eprintln!(
+            "{k}: {frames} frames: {}",
+            res.as_ref()
+                .map_or_else(|e| e.to_string(), |r| format!("{:?}", r.timing.delay_ms))
+        );
+        if let Ok(r) = res {
+            measured += 1;
+            let t = &r.timing;
+            for v in [
+                t.delay_ms,
+                t.fall_delay_ms,
+                t.first_element_shortening_ms,
+                t.rx_recovery_ms,
+            ]
+            .into_iter()
+            .flatten()
+            {
+                assert!(v.is_finite(), "{k}: {t:?}");
+            }
+        }
+    }
+    // The longer files are keyed on both channels: most must be measured.
+    assert!(measured >= 4, "only {measured} measured");
+}
+
 // ------------------------------------------------------------ sox recording
 
 fn have_sox() -> bool {
