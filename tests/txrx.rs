@@ -361,11 +361,6 @@ fn random_recordings_never_panic() {
         }
         w.finalize().unwrap();
         let res = cwaudit::analysis::txrx::analyze_timing(&p, &TimingOptions::default());
-        eprintln!(
-            "{k}: {frames} frames: {}",
-            res.as_ref()
-                .map_or_else(|e| e.to_string(), |r| format!("{:?}", r.timing.delay_ms))
-        );
         if let Ok(r) = res {
             measured += 1;
             let t = &r.timing;
