@@ -9,6 +9,7 @@ pub mod background;
 pub mod downconvert;
 pub mod edges;
 pub mod freq;
+pub mod key_steps;
 pub mod levels;
 pub mod segment;
 pub mod stats;
