@@ -423,7 +423,7 @@ fn txrx_section(dir: &std::path::Path) -> usize {
         println!(
             "| {d} / {} / {sh} / {hang} | {snr} | {:.1} | {} | {} | {} | {} | {:+.2}, {:+.2}, {:+.2}, {:+.1} | {}/{} | {}/{} | {} |",
             fd.unwrap_or(d),
-            c.truth.rx_recovery_ms,
+            c.truth.rx_recovery_ms.unwrap_or(f64::NAN),
             v(t.delay_ms, 2),
             v(t.fall_delay_ms, 2),
             v(t.first_element_shortening_ms, 2),

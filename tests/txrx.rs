@@ -43,12 +43,14 @@ fn check(c: &TimingCase, label: &str) {
             t
         );
     }
-    assert!(
-        e[3].abs() <= RECOVERY_TOL_MS,
-        "{label}: recovery error {:.2} ms (report {:?})",
-        e[3],
-        t
-    );
+    if c.truth.rx_recovery_ms.is_some() {
+        assert!(
+            e[3].abs() <= RECOVERY_TOL_MS,
+            "{label}: recovery error {:.2} ms (report {:?})",
+            e[3],
+            t
+        );
+    }
     // Every transmission row, not only the medians.
     for (row, tr) in c.report.per_transmission.iter().zip(&c.truth.transmissions) {
         assert!((row.start_s - tr.start_s).abs() < 1e-3, "{label}: start");
@@ -57,11 +59,13 @@ fn check(c: &TimingCase, label: &str) {
             (sh - tr.shortening_ms).abs() <= 2.0 * TIMING_TOL_MS,
             "{label}: row shortening {sh}"
         );
-        let rec = row.recovery_ms.expect("recovery per transmission");
-        assert!(
-            (rec - tr.recovery_ms).abs() <= RECOVERY_TOL_MS,
-            "{label}: row recovery {rec}"
-        );
+        if let Some(truth) = tr.recovery_ms {
+            let rec = row.recovery_ms.expect("recovery per transmission");
+            assert!(
+                (rec - truth).abs() <= RECOVERY_TOL_MS,
+                "{label}: row recovery {rec}"
+            );
+        }
     }
 }
 
@@ -121,14 +125,43 @@ fn synth_truth_with_fall_delay_swapped_channels_and_a_received_tone() {
     };
     let c = run_timing_case(&s, dir.path(), "swap", &opt).unwrap();
     // Truth of the recovery: hang + release (depth - 3)/depth = 300 + 36 ms.
-    assert!((c.truth.rx_recovery_ms - 336.0).abs() < 1e-9);
+    assert!((c.truth.rx_recovery_ms.unwrap() - 336.0).abs() < 1e-9);
     check(&c, "fall delay, swapped channels, received tone");
-    assert!((c.report.input.key_tone_hz - 500.0).abs() < 1.0);
+    assert!((c.report.input.key_tone_hz.unwrap() - 500.0).abs() < 1.0);
     assert!((c.report.input.rf_tone_hz - 850.0).abs() < 1.0);
     // Background before: noise -45 dBFS plus a -32 dBFS tone = -31.8 dBFS,
     // less what the sidetone notch takes away (well under 0.5 dB here).
     let bg = c.report.per_transmission[1].background_dbfs.unwrap();
     assert!((bg - c.truth.background_dbfs).abs() < 0.5, "{bg}");
+}
+
+/// A keyer line instead of the rig's audio, DC-coupled and through AC-coupled
+/// inputs of 10 and 50 ms time constant: the delays within 1 ms; no
+/// recovery (no receiver audio), with a warning saying why.
+#[test]
+fn synth_truth_keyer_line_dc_and_ac_coupled() {
+    use cwaudit::synth::txrx::KeyerLine;
+    for (i, ac) in [None, Some(10.0), Some(50.0)].into_iter().enumerate() {
+        let mut s = timing_base(8.0 + 6.0 * i as f64, 4.0, 150.0, 30.0);
+        s.seed = 70 + i as u64;
+        let t = s.txrx.as_mut().unwrap();
+        t.sidetone_edge_ms = 1.0;
+        t.keyer_line = Some(KeyerLine {
+            up_fs: 0.6,
+            down_fs: 0.05,
+            ac_coupling_ms: ac,
+        });
+        let c = case(&s, "line");
+        assert_eq!(c.truth.rx_recovery_ms, None);
+        assert_eq!(c.report.input.key_signal, "keyer line");
+        assert_eq!(c.report.timing.rx_recovery_ms, None);
+        assert!(
+            c.report.warnings.iter().any(|w| w.contains("keyer line")),
+            "{:?}",
+            c.report.warnings
+        );
+        check(&c, &format!("keyer line, AC coupling {ac:?} ms"));
+    }
 }
 
 /// A first element cut by two thirds (40 of a 60 ms dit) is still paired
@@ -153,7 +186,7 @@ fn a_slow_release() {
     s.txrx.as_mut().unwrap().release_ms = 400.0;
     let c = case(&s, "slow");
     // 100 + 400·37/40 = 470 ms.
-    assert!((c.truth.rx_recovery_ms - 470.0).abs() < 1e-9);
+    assert!((c.truth.rx_recovery_ms.unwrap() - 470.0).abs() < 1e-9);
     check(&c, "slow release");
 }
 
@@ -272,7 +305,7 @@ fn binary_errors() {
         ),
         (
             vec![nokey.display().to_string()],
-            "no keyed tone on the key channel",
+            "no keyed tone and no keying steps on the key channel",
         ),
         (
             vec![dir.path().join("missing.wav").display().to_string()],
@@ -547,4 +580,68 @@ fn sox_made_recording_delay_and_recovery() {
         (g("rx_recovery_ms") - (hang * 1e3 + 2.0)).abs() <= 10.0,
         "{v}"
     );
+
+    // The same keying as a DC keyer line: `trim 0 DUR dcshift 0.5` holds a
+    // level of 0.5 for each key-down (hard steps, so the 50 % instants are
+    // the tone's element boundaries, 2 ms outside the sidetone's 50 %
+    // points): RF 50 % rise = line step + 2 ms + 12.5 ms, fall = step -
+    // 2 ms + 12.5 ms.
+    sox(&[
+        s("-n"),
+        s("-r"),
+        s(48_000),
+        s("-b"),
+        s(16),
+        f("dc_el.wav").display().to_string(),
+        s("trim"),
+        s(0),
+        s(el),
+        s("dcshift"),
+        s(0.5),
+    ]);
+    let mut parts = vec![f("lead.wav")];
+    for k in 0..2 {
+        for i in 0..8 {
+            parts.push(f("dc_el.wav"));
+            if i < 7 {
+                parts.push(f("gap.wav"));
+            }
+        }
+        parts.push(f(if k == 0 { "pause.wav" } else { "tail.wav" }));
+    }
+    concat(&parts, &f("line.wav"));
+    sox(&[
+        s("-M"),
+        f("line.wav").display().to_string(),
+        rf.display().to_string(),
+        f("both_line.wav").display().to_string(),
+        s("delay"),
+        s(0),
+        s(0.0125),
+    ]);
+    let out = cwaudit()
+        .arg("timing")
+        .arg(f("both_line.wav"))
+        .arg("--json")
+        .output()
+        .unwrap();
+    assert_eq!(
+        out.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let v: Value = serde_json::from_slice(&out.stdout).unwrap();
+    let g = |k: &str| v["timing"][k].as_f64().unwrap_or(f64::NAN);
+    eprintln!(
+        "sox keyer line: delay {:.3} ms, fall delay {:.3} ms, shortening {:.3} ms",
+        g("delay_ms"),
+        g("fall_delay_ms"),
+        g("first_element_shortening_ms")
+    );
+    assert_eq!(v["input"]["key_signal"], "keyer line");
+    assert_eq!(v["pairing"]["paired"], 16);
+    assert!((g("delay_ms") - 14.5).abs() <= 1.0, "{v}");
+    assert!((g("fall_delay_ms") - 10.5).abs() <= 1.0, "{v}");
+    assert!(g("first_element_shortening_ms").abs() <= 1.0, "{v}");
 }

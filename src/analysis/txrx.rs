@@ -10,6 +10,8 @@
 //!    least max(1 s, 12 dit units) separate them) and paired with RF
 //!    elements by overlap after a coarse lag (the median nearest-rise
 //!    difference within ±200 ms).
+//!    A key channel without a keyed tone is taken for a keyer line: its
+//!    steps ([`StepDetector`]) give the key elements.
 //! 3. [`BackgroundMeter`] on the key channel (sidetone pitch notched out,
 //!    10 ms mean square every 1 ms) feeds [`RecoveryScan`], which finds
 //!    when the background is back within 3 dB of its level before each
@@ -24,9 +26,10 @@ use std::path::Path;
 
 use serde::{Deserialize, Serialize};
 
-use super::tracker::ToneTracker;
+use super::tracker::{ToneTracker, MIN_GAP_S, MIN_MARK_S};
 use super::{choose, timing, Options, BLOCK_FRAMES};
 use crate::dsp::background::BackgroundMeter;
+use crate::dsp::key_steps::{marks_from_steps, StepDetector};
 use crate::dsp::stats::{median, spread, Spread};
 use crate::dsp::survey::Survey;
 use crate::error::{CwError, Result};
@@ -58,6 +61,13 @@ pub const HOLD_S: f64 = 0.02;
 pub const START_GUARD_S: f64 = 0.1;
 /// Mean square below which the key channel counts as silent (−147 dBFS).
 pub const SILENT_POWER: f64 = 1e-15;
+/// A keyer line's steps count from this fraction of its tallest step.
+pub const LINE_STEP_FRACTION: f64 = 0.4;
+/// A key channel whose peak stays below this (−60 dBFS) holds no keyer line.
+pub const MIN_LINE_PEAK: f64 = 1e-3;
+/// A keyer line's tallest step stands at least this many times above the
+/// median step-detector output (white noise alone reaches about 7).
+pub const LINE_STEP_OVER_MEDIAN: f64 = 30.0;
 
 /// Which channels and tones to use.
 #[derive(Clone, Debug)]
@@ -105,8 +115,12 @@ pub struct TimingInput {
     pub key_channel: u16,
     pub rf_channel: u16,
     pub duration_s: f64,
-    /// Pitch of the key channel's tone (median of its elements), Hz.
-    pub key_tone_hz: f64,
+    /// What the key channel carries: "tone" (a sidetone or keyed audio
+    /// tone) or "keyer line" (a keying level, followed by its steps).
+    pub key_signal: String,
+    /// Pitch of the key channel's tone (median of its elements), Hz; null
+    /// for a keyer line.
+    pub key_tone_hz: Option<f64>,
     /// Pitch of the RF channel's tone, Hz.
     pub rf_tone_hz: f64,
     pub key_clipped_samples: u64,
@@ -337,6 +351,8 @@ pub enum Outcome {
     NotBeforeNext,
     /// Not back within 3 dB before the recording ended.
     NotBeforeEnd,
+    /// The key channel is a keyer line: no receiver audio.
+    KeyerLine,
 }
 
 /// Recovery of one transmission.
@@ -561,15 +577,33 @@ pub fn analyze_timing(path: &Path, opt: &TimingOptions) -> Result<TimingReport> 
             path,
         )
     };
-    let key_cand = pick(opt.key_channel, opt.key_tone_hz)?.ok_or_else(|| {
+    // No keyed tone on the key channel (and none asked for): a keyer line,
+    // followed by its steps.
+    let key_cand = pick(opt.key_channel, opt.key_tone_hz)?;
+    let no_key = || {
         CwError::input(
             path,
             format!(
-                "no keyed tone on the key channel (channel {}); it must carry the sidetone or a keyed audio tone (a DC keying voltage is not supported: sound-card inputs are AC-coupled and do not hold a DC level)",
+                "no keyed tone and no keying steps on the key channel (channel {}); it must carry the sidetone, a keyed audio tone or a keyer line's level",
                 opt.key_channel
             ),
         )
-    })?;
+    };
+    let key_peak = s.channels[kc].peak_abs;
+    if key_cand.is_none() {
+        if let Some(c) = s.candidates.iter().find(|c| c.channel == kc) {
+            return Err(CwError::input(
+                path,
+                format!(
+                    "the key channel (channel {}) has a steady tone at {:.1} Hz that is never keyed; it must carry the sidetone, a keyed audio tone or a keyer line's level",
+                    opt.key_channel, c.frequency_hz
+                ),
+            ));
+        }
+        if key_peak < MIN_LINE_PEAK {
+            return Err(no_key());
+        }
+    }
     let rf_cand = pick(opt.rf_channel, opt.rf_tone_hz)?.ok_or_else(|| {
         CwError::input(
             path,
@@ -580,20 +614,45 @@ pub fn analyze_timing(path: &Path, opt: &TimingOptions) -> Result<TimingReport> 
         )
     })?;
 
+    // A keyer line: its tallest step sets the threshold of the others.
+    let mut tallest = f64::INFINITY;
+    if key_cand.is_none() {
+        let mut d = StepDetector::new(fs, f64::INFINITY);
+        let mut src = WavSource::open(path)?;
+        let mut mono = Vec::with_capacity(BLOCK_FRAMES);
+        while src.read_frames(&mut buf, BLOCK_FRAMES)? > 0 {
+            mono.clear();
+            mono.extend(buf.iter().skip(kc).step_by(nch));
+            d.push(&mono);
+        }
+        tallest = d.max_abs();
+        if tallest < LINE_STEP_OVER_MEDIAN * d.median_abs() {
+            return Err(no_key());
+        }
+    }
+
     // Pass 2: elements of both channels.
-    let mut kt = ToneTracker::new(fs, key_cand.frequency_hz);
+    let mut kt = key_cand
+        .as_ref()
+        .map(|c| ToneTracker::new(fs, c.frequency_hz));
+    let mut steps = StepDetector::new(fs, LINE_STEP_FRACTION * tallest);
     let mut rt = ToneTracker::new(fs, rf_cand.frequency_hz);
     let mut src = WavSource::open(path)?;
     let mut mono = Vec::with_capacity(BLOCK_FRAMES);
     while src.read_frames(&mut buf, BLOCK_FRAMES)? > 0 {
         mono.clear();
         mono.extend(buf.iter().skip(kc).step_by(nch));
-        kt.push(&mono);
+        match kt.as_mut() {
+            Some(t) => t.push(&mono),
+            None => steps.push(&mono),
+        }
         mono.clear();
         mono.extend(buf.iter().skip(rc).step_by(nch));
         rt.push(&mono);
     }
-    kt.finish();
+    if let Some(t) = kt.as_mut() {
+        t.finish();
+    }
     rt.finish();
     let marks = |t: &ToneTracker| -> Vec<Mark> {
         t.elements()
@@ -604,15 +663,28 @@ pub fn analyze_timing(path: &Path, opt: &TimingOptions) -> Result<TimingReport> 
             })
             .collect()
     };
-    let (key, rf) = (marks(&kt), marks(&rt));
+    let key: Vec<Mark> = match &kt {
+        Some(t) => marks(t),
+        None => marks_from_steps(&steps.finish(), MIN_MARK_S, MIN_GAP_S)
+            .into_iter()
+            .map(|(a, b)| Mark {
+                rise_s: a,
+                fall_s: b,
+            })
+            .collect(),
+    };
+    let rf = marks(&rt);
     if key.is_empty() {
-        return Err(CwError::input(
-            path,
-            format!(
-                "no key-down could be measured on the key channel (channel {})",
-                opt.key_channel
+        return Err(match kt {
+            Some(_) => CwError::input(
+                path,
+                format!(
+                    "no key-down could be measured on the key channel (channel {})",
+                    opt.key_channel
+                ),
             ),
-        ));
+            None => no_key(),
+        });
     }
     if rf.is_empty() {
         return Err(CwError::input(
@@ -631,7 +703,10 @@ pub fn analyze_timing(path: &Path, opt: &TimingOptions) -> Result<TimingReport> 
             median(&f)
         }
     };
-    let key_tone = pitch(&kt, key_cand.frequency_hz);
+    let key_tone = kt
+        .as_ref()
+        .zip(key_cand.as_ref())
+        .map(|(t, c)| pitch(t, c.frequency_hz));
     let rf_tone = pitch(&rt, rf_cand.frequency_hz);
     let durations: Vec<f64> = key.iter().map(|m| m.duration()).collect();
     let gaps: Vec<Option<f64>> = (0..key.len())
@@ -646,29 +721,42 @@ pub fn analyze_timing(path: &Path, opt: &TimingOptions) -> Result<TimingReport> 
     let pairs = pair(&key, &rf, lag);
     let (mut figs, mut rows) = delays(&key, &rf, &groups, &pairs);
 
-    // Pass 3: the key channel's background and the recovery.
-    let mut meter = BackgroundMeter::new(
-        fs,
-        key_tone,
-        NOTCH_HALF_WIDTH_HZ,
-        BACKGROUND_WINDOW_S,
-        BACKGROUND_HOP_S,
-    );
-    let mut scan = RecoveryScan::new(rows.iter().map(|r| (r.start_s, r.end_s)).collect());
-    let mut src = WavSource::open(path)?;
-    let mut vals = Vec::new();
-    while src.read_frames(&mut buf, BLOCK_FRAMES)? > 0 {
-        mono.clear();
-        mono.extend(buf.iter().skip(kc).step_by(nch));
-        vals.clear();
-        meter.push(&mono, &mut vals);
-        for &(t, p) in &vals {
-            if t >= START_GUARD_S {
-                scan.push(t, p);
+    // Pass 3: the key channel's background and the recovery (a keyer line
+    // carries no receiver audio).
+    let rec = match key_tone {
+        Some(tone) => {
+            let mut meter = BackgroundMeter::new(
+                fs,
+                tone,
+                NOTCH_HALF_WIDTH_HZ,
+                BACKGROUND_WINDOW_S,
+                BACKGROUND_HOP_S,
+            );
+            let mut scan = RecoveryScan::new(rows.iter().map(|r| (r.start_s, r.end_s)).collect());
+            let mut src = WavSource::open(path)?;
+            let mut vals = Vec::new();
+            while src.read_frames(&mut buf, BLOCK_FRAMES)? > 0 {
+                mono.clear();
+                mono.extend(buf.iter().skip(kc).step_by(nch));
+                vals.clear();
+                meter.push(&mono, &mut vals);
+                for &(t, p) in &vals {
+                    if t >= START_GUARD_S {
+                        scan.push(t, p);
+                    }
+                }
             }
+            scan.finish()
         }
-    }
-    let rec = scan.finish();
+        None => vec![
+            Recovery {
+                level_before: None,
+                recovery_s: None,
+                outcome: Outcome::KeyerLine,
+            };
+            rows.len()
+        ],
+    };
     for (r, v) in rows.iter_mut().zip(&rec) {
         r.recovery_ms = v.recovery_s.map(|s| s * 1e3);
         r.background_dbfs = v.level_before.map(dbfs);
@@ -694,6 +782,11 @@ pub fn analyze_timing(path: &Path, opt: &TimingOptions) -> Result<TimingReport> 
         key_channel: opt.key_channel,
         rf_channel: opt.rf_channel,
         duration_s: frames as f64 / fs as f64,
+        key_signal: if key_tone.is_some() {
+            "tone".into()
+        } else {
+            "keyer line".into()
+        },
         key_tone_hz: key_tone,
         rf_tone_hz: rf_tone,
         key_clipped_samples: s.channels[kc].clipped_samples,
@@ -779,6 +872,7 @@ fn warnings(
         (Outcome::NoLevelBefore, "there is less than 50 ms of key-up before it (from 1 s before to 50 ms before its first element) to set the background level; start the recording earlier"),
         (Outcome::Silent, "the key channel is silent before it, so there is no receiver background to recover; record the rig's own audio with its receiver on"),
         (Outcome::NotBeforeNext, "the background did not come back within 3 dB of its level before the transmission until the next one began"),
+        (Outcome::KeyerLine, "the key channel is a keyer line, which carries no receiver audio; record the rig's own audio to measure it"),
         (Outcome::NotBeforeEnd, "the background did not come back within 3 dB of its level before the transmission by the end of the recording; record longer after the last transmission"),
     ] {
         let v = which(o);

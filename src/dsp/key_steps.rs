@@ -43,7 +43,13 @@ pub struct StepDetector {
     prev: f64,
     peak: Option<Peak>,
     steps: Vec<Step>,
+    max_abs: f64,
+    /// Counts of |d| in 1 dB bins from `HIST_MIN_DB`, for its median.
+    hist: Vec<u64>,
 }
+
+const HIST_MIN_DB: f64 = -200.0;
+const HIST_BINS: usize = 221;
 
 impl StepDetector {
     /// Steps whose detector peak exceeds `threshold` (full scale = 1).
@@ -60,6 +66,8 @@ impl StepDetector {
             prev: 0.0,
             peak: None,
             steps: Vec::new(),
+            max_abs: 0.0,
+            hist: vec![0; HIST_BINS],
         }
     }
 
@@ -109,6 +117,12 @@ impl StepDetector {
                 self.sum_new = self.buf.iter().skip(l).sum();
             }
             let d = (self.sum_new - self.sum_old) / l as f64;
+            self.max_abs = self.max_abs.max(d.abs());
+            let db = 20.0 * d.abs().max(1e-300).log10();
+            let bin = (db - HIST_MIN_DB)
+                .floor()
+                .clamp(0.0, (HIST_BINS - 1) as f64) as usize;
+            self.hist[bin] += 1;
             let c = self.n - l as u64;
             if let Some(p) = self.peak.as_mut() {
                 if p.after.is_none() && p.c + 1 == c {
@@ -133,6 +147,26 @@ impl StepDetector {
             }
             self.prev = d;
         }
+    }
+
+    /// Largest |detector output| so far: the tallest step, which sets the
+    /// threshold of a second run (`f64::INFINITY` finds no steps).
+    pub fn max_abs(&self) -> f64 {
+        self.max_abs
+    }
+
+    /// Median |detector output| (to 1 dB): the line's noise, since steps
+    /// take up a small part of the time. 0 before any output.
+    pub fn median_abs(&self) -> f64 {
+        let total: u64 = self.hist.iter().sum();
+        let mut acc = 0;
+        for (i, &c) in self.hist.iter().enumerate() {
+            acc += c;
+            if c > 0 && 2 * acc >= total {
+                return 10f64.powf((HIST_MIN_DB + i as f64 + 0.5) / 20.0);
+            }
+        }
+        0.0
     }
 
     /// Ends the stream and returns the steps in time order.
@@ -205,6 +239,7 @@ mod tests {
         for c in x.chunks(1000) {
             d.push(c);
         }
+        let d_median = d.median_abs();
         let s = d.finish();
         assert_eq!(s.len(), 4, "{s:?}");
         for (st, e) in s.iter().zip(edges) {
@@ -219,6 +254,8 @@ mod tests {
             );
         }
         assert!(!s[0].rising && s[1].rising);
+        // A flat line between the steps: the median |d| is tiny.
+        assert!(d_median < 1e-6, "{d_median}");
         let m = marks_from_steps(&s, 0.004, 0.004);
         assert_eq!(m.len(), 2);
         assert!((m[0].1 - m[0].0 - 0.05981).abs() < 4e-5);

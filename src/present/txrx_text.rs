@@ -27,10 +27,14 @@ pub fn render_timing(r: &TimingReport) -> String {
     let t = &r.timing;
     let p = &r.pairing;
     let _ = writeln!(o, "Transmit/receive timing: {}", i.path);
+    let key = match i.key_tone_hz {
+        Some(f) => format!("tone {f:.1} Hz"),
+        None => i.key_signal.clone(),
+    };
     let _ = writeln!(
         o,
-        "  key channel {} (tone {:.1} Hz), RF channel {} (tone {:.1} Hz), {:.2} s at {} Hz",
-        i.key_channel, i.key_tone_hz, i.rf_channel, i.rf_tone_hz, i.duration_s, i.sample_rate_hz
+        "  key channel {} ({key}), RF channel {} (tone {:.1} Hz), {:.2} s at {} Hz",
+        i.key_channel, i.rf_channel, i.rf_tone_hz, i.duration_s, i.sample_rate_hz
     );
     let _ = writeln!(
         o,

@@ -161,6 +161,10 @@ pub struct TxRxArgs {
     /// Then the background returns to full level along a ramp linear in dB this long, ms.
     #[arg(long, value_name = "MS")]
     pub release: Option<f64>,
+    /// Make the key channel a keyer line: level at key up and key down (full
+    /// scale = 1), and the time constant of an AC-coupled input in ms (none: DC).
+    #[arg(long, value_name = "UP,DOWN[,AC_MS]", allow_negative_numbers = true)]
+    pub keyer_line: Option<String>,
 }
 
 impl TxRxArgs {
@@ -179,6 +183,7 @@ impl TxRxArgs {
             || self.mute_lead.is_some()
             || self.hang.is_some()
             || self.release.is_some()
+            || self.keyer_line.is_some()
     }
 
     /// Applies the flags to `s` (turning timing on when any is given).
@@ -214,6 +219,14 @@ impl TxRxArgs {
             let v = numbers("rx-tone", v, 2, 2)?;
             t.rx_tone_hz = Some(v[0]);
             t.rx_tone_dbfs = v[1];
+        }
+        if let Some(v) = &self.keyer_line {
+            let v = numbers("keyer-line", v, 2, 3)?;
+            t.keyer_line = Some(super::txrx::KeyerLine {
+                up_fs: v[0],
+                down_fs: v[1],
+                ac_coupling_ms: v.get(2).copied(),
+            });
         }
         if !channels_given {
             s.channels = 2;

@@ -457,6 +457,9 @@ struct TxRxState {
     rx_tone: Option<Tone>,
     background_sigma: f64,
     muting: txrx::Muting,
+    /// Keyer line instead of the rig's audio: levels, the AC coupling's
+    /// pole (None: DC) and its state (previous input, output).
+    line: Option<(txrx::KeyerLine, Option<f64>, f64, f64)>,
 }
 
 fn check(ok: bool, msg: &str) -> Result<()> {
@@ -715,7 +718,8 @@ impl Synth {
             let side_amp = 10f64.powf(t.sidetone_dbfs / 20.0);
             let rx_amp = 10f64.powf(t.rx_tone_dbfs / 20.0);
             check(
-                side_amp + t.rx_tone_hz.map_or(0.0, |_| rx_amp) <= 1.0 + 1e-9,
+                t.keyer_line.is_some()
+                    || side_amp + t.rx_tone_hz.map_or(0.0, |_| rx_amp) <= 1.0 + 1e-9,
                 "the sidetone and the received tone together would exceed full scale; lower them.",
             )?;
             end = end.max(end_of(&p.key, (EdgeShape::RaisedCosine, p.sidetone_edge_s)));
@@ -742,6 +746,15 @@ impl Synth {
                 rx_tone: t.rx_tone_hz.map(|f| keyed(rx_amp, f, Vec::new(), false)),
                 background_sigma: (0.5 * 10f64.powf(t.background_dbfs / 10.0)).sqrt(),
                 muting: p.muting.clone(),
+                // The AC coupling starts settled at the key-up level.
+                line: t.keyer_line.map(|k| {
+                    (
+                        k,
+                        k.ac_coupling_ms.map(|ms| (-1.0 / (ms * 1e-3 * fs)).exp()),
+                        k.up_fs,
+                        0.0,
+                    )
+                }),
             });
         }
 
@@ -993,6 +1006,27 @@ impl Synth {
         let rf_noise = gauss(self.noise_sigma, &mut self.rng);
         let st = self.txrx.as_mut().expect("called for timing recordings");
         let bg_noise = gauss(st.background_sigma, &mut self.rng);
+        if let Some((k, pole, px, py)) = st.line.as_mut() {
+            let v = k.up_fs + (k.down_fs - k.up_fs) * st.sidetone.envelope(t);
+            let out = match pole {
+                Some(a) => {
+                    *py = *a * (*py + v - *px);
+                    *px = v;
+                    *py
+                }
+                None => v,
+            };
+            let y = x + rf_noise;
+            let rf = match self.filter.as_mut() {
+                Some(f) => f.process(y),
+                None => y,
+            };
+            let kc = st.key_channel;
+            for (c, o) in frame.iter_mut().enumerate() {
+                *o = if c == kc { out + bg_noise } else { rf };
+            }
+            return;
+        }
         let mut bg = bg_noise;
         if let Some(rx) = st.rx_tone.as_mut() {
             bg += rx.sample(n, self.fs);

@@ -63,6 +63,34 @@ pub struct TxRxSpec {
     pub hang_ms: f64,
     /// Then the gain returns to 0 dB along a ramp linear in dB this long, ms.
     pub release_ms: f64,
+    /// Make the key channel a keyer line instead of the rig's audio (no
+    /// sidetone, no receiver background to mute; the white noise stays).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub keyer_line: Option<KeyerLine>,
+}
+
+/// A keyer line: a level that steps between `up_fs` (key up) and `down_fs`
+/// (key down) with the sidetone's edges, optionally through an AC-coupled
+/// input (a one-pole high-pass with time constant `ac_coupling_ms`).
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(default)]
+pub struct KeyerLine {
+    /// Level at key up, full scale = 1.
+    pub up_fs: f64,
+    /// Level at key down, full scale = 1.
+    pub down_fs: f64,
+    /// Time constant of an AC-coupled input, ms (None: DC-coupled).
+    pub ac_coupling_ms: Option<f64>,
+}
+
+impl Default for KeyerLine {
+    fn default() -> Self {
+        KeyerLine {
+            up_fs: 0.5,
+            down_fs: 0.0,
+            ac_coupling_ms: None,
+        }
+    }
 }
 
 impl Default for TxRxSpec {
@@ -84,6 +112,7 @@ impl Default for TxRxSpec {
             mute_lead_ms: 5.0,
             hang_ms: 150.0,
             release_ms: 5.0,
+            keyer_line: None,
         }
     }
 }
@@ -110,8 +139,9 @@ pub struct TransmissionTruth {
     pub first_rf_ms: f64,
     /// (key − RF duration) of the first element minus that of the others, ms.
     pub shortening_ms: f64,
-    /// Last key 50 % fall to background back within 3 dB, ms.
-    pub recovery_ms: f64,
+    /// Last key 50 % fall to background back within 3 dB, ms (null for a
+    /// keyer line, which has no receiver background).
+    pub recovery_ms: Option<f64>,
 }
 
 /// What was put into a timing recording (`txrx` of the truth file).
@@ -122,8 +152,8 @@ pub struct TxRxTruth {
     pub delay_ms: f64,
     pub fall_delay_ms: f64,
     pub first_element_shortening_ms: f64,
-    /// `hang_ms + release_ms·(depth − 3)/depth`.
-    pub rx_recovery_ms: f64,
+    /// `hang_ms + release_ms·(depth − 3)/depth` (null for a keyer line).
+    pub rx_recovery_ms: Option<f64>,
     /// Background level before each transmission: noise plus the received
     /// tone, dBFS (full-scale sine = 0 dBFS), over the whole band.
     pub background_dbfs: f64,
@@ -243,7 +273,24 @@ pub(super) fn plan(
     let fd = fall_delay * 1e-3;
     let sh = t.first_shortening_ms * 1e-3;
     let depth = t.mute_depth_db;
-    let recovery_ms = t.hang_ms + t.release_ms * (depth - 3.0) / depth;
+    let recovery_ms = t
+        .keyer_line
+        .is_none()
+        .then(|| t.hang_ms + t.release_ms * (depth - 3.0) / depth);
+    if let Some(k) = t.keyer_line {
+        check(
+            finite_in(k.up_fs, -1.0, 1.0)
+                && finite_in(k.down_fs, -1.0, 1.0)
+                && (k.up_fs - k.down_fs).abs() >= 0.01,
+            "the keyer line's levels must be between -1 and 1 and at least 0.01 apart.",
+        )?;
+        if let Some(a) = k.ac_coupling_ms {
+            check(
+                finite_in(a, 1.0, 10_000.0),
+                "the keyer line's AC-coupling time constant must be between 1 and 10000 ms.",
+            )?;
+        }
+    }
     for k in 0..t.transmissions {
         let off = k as f64 * (span + t.pause_s);
         let first_key = key.len();
@@ -377,7 +424,7 @@ mod tests {
         // Second transmission starts a pause after the first one's last fall.
         assert!((p.key[2].t_s - p.key[1].t_e - 3.0).abs() < 1e-12);
         // Recovery: hang + release (depth − 3)/depth = 200 + 10·37/40.
-        assert!((p.truth.rx_recovery_ms - 209.25).abs() < 1e-9);
+        assert!((p.truth.rx_recovery_ms.unwrap() - 209.25).abs() < 1e-9);
         let r = &p.truth.transmissions[0];
         // Shortening as defined: (key − RF) of the first minus of the others.
         let others = 60.0 - (60.0 - 12.0 + 8.0);
@@ -398,7 +445,7 @@ mod tests {
         assert!((p.muting.gain(0.1) - 1.0).abs() < 1e-12);
         // Muted from mute_lead before the first rise.
         assert!((p.muting.gain(0.3 - 0.004) - 10f64.powf(-1.5)).abs() < 1e-12);
-        let tr = last_fall + p.truth.rx_recovery_ms * 1e-3;
+        let tr = last_fall + p.truth.rx_recovery_ms.unwrap() * 1e-3;
         let db = 20.0 * p.muting.gain(tr).log10();
         assert!((db + 3.0).abs() < 1e-9, "{db}");
         assert!((p.muting.gain(last_fall + 0.121) - 1.0).abs() < 1e-12);
