@@ -51,9 +51,9 @@ pub enum Command {
 
 const TIMING_HELP: &str = "\
 Channels: the key channel is the rig's own audio (its sidetone, with the
-receiver's background muted during transmit) or a keyed audio tone on the
-keyer line; the RF channel is the monitor receiver hearing the transmitter.
-A DC keying voltage is not supported.
+receiver's background muted during transmit), or the keyer line (its keying
+level, or a keyed audio tone on it); the RF channel is the monitor receiver
+hearing the transmitter. Only the rig's own audio gives the receive recovery.
 
 Exit codes: 0 = measured, 2 = the input or the command line could not be used
 (one sentence on stderr says why).
