@@ -464,6 +464,16 @@ mod tests {
         assert_eq!((t.sidetone_hz, t.sidetone_dbfs), (650.0, -15.0));
         assert_eq!(t.rx_tone_hz, Some(1200.0));
         assert!(build_spec(&parse(&["o.wav"])).unwrap().txrx.is_none());
+        let k = build_spec(&parse(&["o.wav", "--keyer-line", "0.5,0,20"]))
+            .unwrap()
+            .txrx
+            .unwrap()
+            .keyer_line
+            .unwrap();
+        assert_eq!(
+            (k.up_fs, k.down_fs, k.ac_coupling_ms),
+            (0.5, 0.0, Some(20.0))
+        );
         assert!(build_spec(&parse(&["o.wav", "--sidetone", "650"])).is_err());
     }
 
