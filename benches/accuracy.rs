@@ -379,6 +379,9 @@ fn main() {
     if want("carrier") {
         fails += carrier_tables(dir.path());
     }
+    if want("txrx") {
+        fails += txrx_section(dir.path());
+    }
     println!("\nCases outside their tolerance: {fails}");
 }
 
@@ -573,5 +576,90 @@ fn carrier_tables(dir: &std::path::Path) -> usize {
         r.summary.carrier.drift_hz_per_min.unwrap_or(f64::NAN),
         check((m - want).abs() <= 1.5)
     );
+    fails
+}
+
+/// Transmit/receive timing (`cwaudit timing`) against the synthesizer's
+/// truth: delay, fall delay, first-element shortening, receive recovery.
+fn txrx_section(dir: &std::path::Path) -> usize {
+    use cwaudit::accuracy_txrx::{run_timing_case, timing_base, RECOVERY_TOL_MS, TIMING_TOL_MS};
+    use cwaudit::analysis::txrx::TimingOptions;
+    println!("\n### Transmit/receive timing (two channels)\n");
+    println!("\"TEST DE\" in 3 transmissions of 10 elements, 3 s apart, 20 WPM. Key channel: 600 Hz sidetone at -12 dBFS,");
+    println!("3 ms edges, receiver background (white noise) -40 dBFS muted by 40 dB, 5 ms release. RF channel: 700 Hz,");
+    println!("5 ms raised-cosine edges, SNR in 2.5 kHz as given. Tolerance: {TIMING_TOL_MS} ms on delay, fall delay and");
+    println!("shortening, {RECOVERY_TOL_MS} ms on the recovery (issue 4); all elements paired. Keyer-line rows: the key");
+    println!("channel is a line stepping 0.6 to 0.05 with 1 ms edges, DC- or AC-coupled; no recovery (-).\n");
+    println!("| delay / fall delay / shortening / hang ms | SNR dB | truth recovery ms | delay ms | fall delay ms | shortening ms | recovery ms | errors ms (delay, fall, short., recov.) | transmissions | paired | within |");
+    println!("|---|---|---|---|---|---|---|---|---|---|---|");
+    // (delay, fall delay, shortening, hang, SNR, keyer line: None = the
+    // rig's audio, Some(AC coupling ms or None for DC)).
+    type TxCase = (f64, Option<f64>, f64, f64, f64, Option<Option<f64>>);
+    let mut cases: Vec<TxCase> = Vec::new();
+    for d in [0.0, 10.0, 30.0] {
+        for sh in [0.0, 20.0] {
+            for hang in [50.0, 500.0] {
+                cases.push((d, None, sh, hang, 30.0, None));
+            }
+        }
+    }
+    for snr in [15.0, 20.0] {
+        cases.push((10.0, None, 5.0, 200.0, snr, None));
+        cases.push((25.0, Some(15.0), 15.0, 100.0, snr, None));
+    }
+    cases.push((5.0, Some(12.0), 8.0, 300.0, 30.0, None));
+    for ac in [None, Some(10.0), Some(50.0)] {
+        cases.push((12.0, None, 6.0, 150.0, 30.0, Some(ac)));
+    }
+    let mut fails = 0;
+    for (i, &(d, fd, sh, hang, snr, line)) in cases.iter().enumerate() {
+        let mut s = timing_base(d, sh, hang, snr);
+        s.seed = 500 + i as u64;
+        let t = s.txrx.as_mut().expect("timing spec");
+        t.fall_delay_ms = fd;
+        if let Some(ac) = line {
+            t.sidetone_edge_ms = 1.0;
+            t.keyer_line = Some(cwaudit::synth::txrx::KeyerLine {
+                up_fs: 0.6,
+                down_fs: 0.05,
+                ac_coupling_ms: ac,
+            });
+        }
+        let key = match line {
+            None => String::new(),
+            Some(None) => " (keyer line, DC)".into(),
+            Some(Some(ms)) => format!(" (keyer line, AC {ms} ms)"),
+        };
+        let c = run_timing_case(&s, dir, "txrx", &TimingOptions::default()).expect("case runs");
+        let t = &c.report.timing;
+        let e = c.errors_ms();
+        let good = c.within();
+        if !good {
+            fails += 1;
+        }
+        let v = |x: Option<f64>, p: usize| x.map_or("-".to_string(), |x| format!("{x:.p$}"));
+        println!(
+            "| {d} / {} / {sh} / {hang}{key} | {snr} | {} | {} | {} | {} | {} | {:+.2}, {:+.2}, {:+.2}, {} | {}/{} | {}/{} | {} |",
+            fd.unwrap_or(d),
+            v(c.truth.rx_recovery_ms, 1),
+            v(t.delay_ms, 2),
+            v(t.fall_delay_ms, 2),
+            v(t.first_element_shortening_ms, 2),
+            v(t.rx_recovery_ms, 1),
+            e[0],
+            e[1],
+            e[2],
+            if e[3].is_nan() {
+                "-".to_string()
+            } else {
+                format!("{:+.1}", e[3])
+            },
+            t.transmissions,
+            c.truth.transmissions.len(),
+            c.report.pairing.paired,
+            c.truth.key_elements.len(),
+            ok(good)
+        );
+    }
     fails
 }

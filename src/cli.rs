@@ -44,6 +44,71 @@ pub enum Command {
     Compare(CompareArgs),
     /// Print the limits in force (the built-in ones, or a profile's) as a TOML profile.
     Limits(LimitsArgs),
+    /// Measure transmit/receive timing in a two-channel recording (key channel and monitor receiver).
+    #[command(after_help = TIMING_HELP)]
+    Timing(TimingArgs),
+}
+
+const TIMING_HELP: &str = "\
+Channels: the key channel is the rig's own audio (its sidetone, with the
+receiver's background muted during transmit), or the keyer line (its keying
+level, or a keyed audio tone on it); the RF channel is the monitor receiver
+hearing the transmitter. Only the rig's own audio gives the receive recovery.
+
+Exit codes: 0 = measured, 2 = the input or the command line could not be used
+(one sentence on stderr says why).
+
+Safety: transmit only where your licence allows, and into a dummy load when
+testing. Keep RF out of the receiver and the sound card: couple loosely or
+attenuate. Mind RF exposure and the high voltages in valve finals and mains
+supplies. Local regulations and licensed practice come first; cwaudit measures,
+it does not certify.";
+
+#[derive(Args, Debug)]
+pub struct TimingArgs {
+    /// Two-channel WAV file.
+    #[arg(value_name = "FILE")]
+    pub file: PathBuf,
+    /// Channel of the rig's own audio or keyer line, from 1.
+    #[arg(long, value_name = "N", default_value_t = 1)]
+    pub key_channel: u16,
+    /// Channel of the monitor receiver, from 1.
+    #[arg(long, value_name = "N", default_value_t = 2)]
+    pub rf_channel: u16,
+    /// Pitch of the key channel's tone (sidetone), Hz; default: its strongest keyed tone.
+    #[arg(long, value_name = "HZ")]
+    pub key_tone: Option<f64>,
+    /// Pitch of the RF channel's tone, Hz; default: its strongest keyed tone.
+    #[arg(long, value_name = "HZ")]
+    pub rf_tone: Option<f64>,
+    /// Print one JSON document instead of the text report.
+    #[arg(long)]
+    pub json: bool,
+}
+
+fn timing_cmd(a: &TimingArgs) -> Result<i32> {
+    for (name, v) in [("--key-tone", a.key_tone), ("--rf-tone", a.rf_tone)] {
+        if let Some(f) = v {
+            if !(f.is_finite() && f > 0.0) {
+                return Err(CwError::Usage(format!(
+                    "{name} must be a positive frequency in Hz, not {f}"
+                )));
+            }
+        }
+    }
+    let opt = crate::analysis::txrx::TimingOptions {
+        key_channel: a.key_channel,
+        rf_channel: a.rf_channel,
+        key_tone_hz: a.key_tone,
+        rf_tone_hz: a.rf_tone,
+    };
+    let rep = crate::analysis::txrx::analyze_timing(&a.file, &opt)?;
+    if a.json {
+        emit(&format!("{}\n", present::txrx_text::timing_json(&rep)));
+    } else {
+        emit(&present::txrx_text::render_timing(&rep));
+    }
+    Ok(0)
 }
 
 #[derive(Args, Debug)]
@@ -307,6 +372,7 @@ pub fn main() -> i32 {
             .map_err(|e| e.to_string()),
         Command::Compare(a) => compare(a).map_err(|e| e.to_string()),
         Command::Limits(a) => limits(a).map_err(|e| e.to_string()),
+        Command::Timing(a) => timing_cmd(a).map_err(|e| e.to_string()),
     };
     match res {
         Ok(c) => c,

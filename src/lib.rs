@@ -6,6 +6,7 @@
 //! stated truth.
 
 pub mod accuracy;
+pub mod accuracy_txrx;
 pub mod analysis;
 pub mod batch;
 pub mod cli;

@@ -9,6 +9,7 @@ pub mod spectral;
 pub mod timing;
 pub mod tones;
 pub mod tracker;
+pub mod txrx;
 pub mod views;
 pub mod warnings;
 
@@ -47,7 +48,7 @@ pub struct Options {
 }
 
 /// Which tone to follow, from the survey and the options.
-fn choose(s: &SurveyResult, opt: &Options, path: &Path) -> Result<Option<Candidate>> {
+pub(crate) fn choose(s: &SurveyResult, opt: &Options, path: &Path) -> Result<Option<Candidate>> {
     if let Some(c) = opt.channel {
         if c == 0 || c as usize > s.channels.len() {
             return Err(CwError::Usage(format!(

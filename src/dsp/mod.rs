@@ -5,10 +5,12 @@
 //! levels → IEEE 181 state levels; segment → elements (hysteresis);
 //! edges, freq → rise/fall and chirp of one element.
 
+pub mod background;
 pub mod downconvert;
 pub mod edges;
 pub mod freq;
 pub mod hum;
+pub mod key_steps;
 pub mod levels;
 pub mod segment;
 pub mod stats;

@@ -6,4 +6,5 @@ pub mod html;
 pub mod json;
 pub mod plots;
 pub mod text;
+pub mod txrx_text;
 pub mod view_args;

@@ -242,11 +242,13 @@ fn carrier_lines(o: &mut String, r: &Report) {
         );
     }
     if let Some(st) = &s.sidetone {
+        let from = match st.signal_source.as_str() {
+            "tone" => "another tone in this recording",
+            "reference file" => "the reference recording",
+            other => other,
+        };
         let sig = match st.signal_hz {
-            Some(f) => format!(
-                "the signal at {f:.1} Hz ({:.1} dBFS, {})",
-                st.signal_dbfs, st.signal_source
-            ),
+            Some(f) => format!("the signal at {f:.1} Hz ({:.1} dBFS, {from})", st.signal_dbfs),
             None => format!("the given signal level of {:.1} dBFS", st.signal_dbfs),
         };
         let _ = writeln!(

@@ -126,9 +126,133 @@ pub struct SynthArgs {
     /// Seed of the noise generator.
     #[arg(long)]
     pub seed: Option<u64>,
+    /// Transmit/receive timing settings (a two-channel recording).
+    #[command(flatten)]
+    pub txrx: TxRxArgs,
     /// Replace existing output files.
     #[arg(long)]
     pub force: bool,
+}
+
+/// Flags of a two-channel transmit/receive timing recording. Any of them
+/// makes one (two channels: the rig's own audio and the monitor receiver).
+#[derive(clap::Args, Debug, Default)]
+pub struct TxRxArgs {
+    /// Make a transmit/receive timing recording with the default settings.
+    #[arg(long)]
+    pub txrx: bool,
+    /// Channel of the rig's own audio (sidetone and muted background); the other is the monitor receiver.
+    #[arg(long, value_name = "N")]
+    pub key_channel: Option<u16>,
+    /// RF 50 % rise minus key 50 % rise, ms.
+    #[arg(long, value_name = "MS", allow_negative_numbers = true)]
+    pub rf_delay: Option<f64>,
+    /// RF 50 % fall minus key 50 % fall, ms (default: the rise delay).
+    #[arg(long, value_name = "MS", allow_negative_numbers = true)]
+    pub rf_fall_delay: Option<f64>,
+    /// Extra delay of the RF rise of each transmission's first element, ms.
+    #[arg(long, value_name = "MS")]
+    pub first_shortening: Option<f64>,
+    /// Number of transmissions.
+    #[arg(long, value_name = "N")]
+    pub transmissions: Option<u32>,
+    /// Key-up between transmissions, s.
+    #[arg(long, value_name = "S")]
+    pub pause: Option<f64>,
+    /// Sidetone: pitch in Hz and level in dBFS.
+    #[arg(long, value_name = "HZ,DBFS", allow_negative_numbers = true)]
+    pub sidetone: Option<String>,
+    /// Receiver background on the key channel: white-noise power over the whole band, dBFS.
+    #[arg(long, value_name = "DBFS", allow_negative_numbers = true)]
+    pub rx_background: Option<f64>,
+    /// A steady received tone in the key channel's background: pitch in Hz, level in dBFS.
+    #[arg(long, value_name = "HZ,DBFS", allow_negative_numbers = true)]
+    pub rx_tone: Option<String>,
+    /// Background attenuation while muted, dB.
+    #[arg(long, value_name = "DB")]
+    pub mute_depth: Option<f64>,
+    /// Muting starts this long before the first key-down, ms.
+    #[arg(long, value_name = "MS")]
+    pub mute_lead: Option<f64>,
+    /// Muting holds this long after the last key-up, ms.
+    #[arg(long, value_name = "MS")]
+    pub hang: Option<f64>,
+    /// Then the background returns to full level along a ramp linear in dB this long, ms.
+    #[arg(long, value_name = "MS")]
+    pub release: Option<f64>,
+    /// Make the key channel a keyer line: level at key up and key down (full
+    /// scale = 1), and the time constant of an AC-coupled input in ms (none: DC).
+    #[arg(long, value_name = "UP,DOWN[,AC_MS]", allow_negative_numbers = true)]
+    pub keyer_line: Option<String>,
+}
+
+impl TxRxArgs {
+    fn any(&self) -> bool {
+        self.txrx
+            || self.key_channel.is_some()
+            || self.rf_delay.is_some()
+            || self.rf_fall_delay.is_some()
+            || self.first_shortening.is_some()
+            || self.transmissions.is_some()
+            || self.pause.is_some()
+            || self.sidetone.is_some()
+            || self.rx_background.is_some()
+            || self.rx_tone.is_some()
+            || self.mute_depth.is_some()
+            || self.mute_lead.is_some()
+            || self.hang.is_some()
+            || self.release.is_some()
+            || self.keyer_line.is_some()
+    }
+
+    /// Applies the flags to `s` (turning timing on when any is given).
+    fn apply(&self, s: &mut SynthSpec, channels_given: bool) -> Result<()> {
+        if !self.any() {
+            return Ok(());
+        }
+        let mut t = s.txrx.take().unwrap_or_default();
+        macro_rules! put {
+            ($($field:ident = $arg:expr),* $(,)?) => {$(if let Some(v) = $arg { t.$field = v; })*};
+        }
+        put!(
+            key_channel = self.key_channel,
+            delay_ms = self.rf_delay,
+            first_shortening_ms = self.first_shortening,
+            transmissions = self.transmissions,
+            pause_s = self.pause,
+            background_dbfs = self.rx_background,
+            mute_depth_db = self.mute_depth,
+            mute_lead_ms = self.mute_lead,
+            hang_ms = self.hang,
+            release_ms = self.release,
+        );
+        if let Some(v) = self.rf_fall_delay {
+            t.fall_delay_ms = Some(v);
+        }
+        if let Some(v) = &self.sidetone {
+            let v = numbers("sidetone", v, 2, 2)?;
+            t.sidetone_hz = v[0];
+            t.sidetone_dbfs = v[1];
+        }
+        if let Some(v) = &self.rx_tone {
+            let v = numbers("rx-tone", v, 2, 2)?;
+            t.rx_tone_hz = Some(v[0]);
+            t.rx_tone_dbfs = v[1];
+        }
+        if let Some(v) = &self.keyer_line {
+            let v = numbers("keyer-line", v, 2, 3)?;
+            t.keyer_line = Some(super::txrx::KeyerLine {
+                up_fs: v[0],
+                down_fs: v[1],
+                ac_coupling_ms: v.get(2).copied(),
+            });
+        }
+        if !channels_given {
+            s.channels = 2;
+        }
+        s.txrx = Some(t);
+        Ok(())
+    }
 }
 
 /// Splits "a,b[,c]" into numbers, naming the option in the error.
@@ -227,6 +351,7 @@ pub fn build_spec(a: &SynthArgs) -> Result<SynthSpec> {
         st.level_db = v[1];
         s.second = Some(st);
     }
+    a.txrx.apply(&mut s, a.channels.is_some())?;
     let second_flags = a.second_text.is_some() || a.second_wpm.is_some() || a.second_steady;
     if second_flags {
         let Some(st) = s.second.as_mut() else {
@@ -281,6 +406,14 @@ pub fn run(args: &SynthArgs) -> Result<()> {
     );
     if !truth.second_elements.is_empty() {
         line += &format!(" (+{} of the second tone)", truth.second_elements.len());
+    }
+    if let Some(t) = &truth.txrx {
+        line += &format!(
+            " in {} transmissions (key channel {}, RF channel {})",
+            t.transmissions.len(),
+            t.key_channel,
+            t.rf_channel
+        );
     }
     if truth.clipped_samples > 0 {
         line += &format!(", {} samples clipped at full scale", truth.clipped_samples);
@@ -346,6 +479,44 @@ mod tests {
         assert_eq!(s.rise_shape, EdgeShape::Gaussian);
         assert_eq!(s.format, SampleFormat::F64);
         assert_eq!(s.backwave_db, Some(-45.0));
+    }
+
+    #[test]
+    fn timing_flags_make_a_two_channel_spec() {
+        let s = build_spec(&parse(&[
+            "o.wav",
+            "--rf-delay",
+            "12",
+            "--first-shortening",
+            "4",
+            "--hang",
+            "250",
+            "--sidetone",
+            "650,-15",
+            "--rx-tone",
+            "1200,-35",
+        ]))
+        .unwrap();
+        assert_eq!(s.channels, 2);
+        let t = s.txrx.unwrap();
+        assert_eq!(t.delay_ms, 12.0);
+        assert_eq!(t.fall_delay_ms, None);
+        assert_eq!(t.first_shortening_ms, 4.0);
+        assert_eq!(t.hang_ms, 250.0);
+        assert_eq!((t.sidetone_hz, t.sidetone_dbfs), (650.0, -15.0));
+        assert_eq!(t.rx_tone_hz, Some(1200.0));
+        assert!(build_spec(&parse(&["o.wav"])).unwrap().txrx.is_none());
+        let k = build_spec(&parse(&["o.wav", "--keyer-line", "0.5,0,20"]))
+            .unwrap()
+            .txrx
+            .unwrap()
+            .keyer_line
+            .unwrap();
+        assert_eq!(
+            (k.up_fs, k.down_fs, k.ac_coupling_ms),
+            (0.5, 0.0, Some(20.0))
+        );
+        assert!(build_spec(&parse(&["o.wav", "--sidetone", "650"])).is_err());
     }
 
     #[test]

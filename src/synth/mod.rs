@@ -32,6 +32,7 @@ pub mod cli;
 pub mod filter;
 pub mod morse;
 pub mod shapes;
+pub mod txrx;
 
 pub use shapes::{edge_fall, edge_rise, EdgeShape};
 
@@ -208,6 +209,9 @@ pub struct SynthSpec {
     pub tail_s: f64,
     pub repeat: u32,
     pub seed: u64,
+    /// Two-channel transmit/receive timing recording (see [`txrx`]).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub txrx: Option<txrx::TxRxSpec>,
 }
 
 impl Default for SynthSpec {
@@ -242,6 +246,7 @@ impl Default for SynthSpec {
             tail_s: 0.3,
             repeat: 1,
             seed: 1,
+            txrx: None,
         }
     }
 }
@@ -301,6 +306,9 @@ pub struct Truth {
     /// Caveats about the truth (e.g. receiver filter).
     #[serde(default)]
     pub notes: Vec<String>,
+    /// Truth of a transmit/receive timing recording.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub txrx: Option<txrx::TxRxTruth>,
 }
 
 /// Chirp law in seconds.
@@ -485,6 +493,20 @@ pub struct Synth {
     rng: Xoshiro256PlusPlus,
     filter: Option<BandpassFilter>,
     buf: Vec<f64>,
+    txrx: Option<TxRxState>,
+}
+
+/// The key channel of a timing recording: sidetone, and a muted background.
+#[derive(Clone, Debug)]
+struct TxRxState {
+    key_channel: usize,
+    sidetone: Tone,
+    rx_tone: Option<Tone>,
+    background_sigma: f64,
+    muting: txrx::Muting,
+    /// Keyer line instead of the rig's audio: levels, the AC coupling's
+    /// pole (None: DC) and its state (previous input, output).
+    line: Option<(txrx::KeyerLine, Option<f64>, f64, f64)>,
 }
 
 fn check(ok: bool, msg: &str) -> Result<()> {
@@ -709,11 +731,80 @@ impl Synth {
             lead_in_s: s.lead_in_s,
             repeat: s.repeat,
         })?;
+        // A timing recording: the main tone is the RF, keyed from the key
+        // timing with delays; the element kinds follow the key durations.
+        let mut key_durations: Vec<f64> = elems.iter().map(|e| e.t_e - e.t_s).collect();
+        let (elems, txrx_plan) = match &s.txrx {
+            Some(t) => {
+                let p = txrx::plan(t, &elems, rise, fall, 1.2 / s.wpm, s.channels)?;
+                key_durations = p.key.iter().map(|e| e.t_e - e.t_s).collect();
+                (p.rf.clone(), Some(p))
+            }
+            None => (elems, None),
+        };
         let amp = 10f64.powf(s.level_dbfs / 20.0);
         let end_of = |e: &[Elem], f: (EdgeShape, f64)| {
             e.last().map_or(0.0, |l| l.t_e + shapes::settle_s(f.0, f.1))
         };
         let mut end = end_of(&elems, fall);
+        let mut txrx_state = None;
+        if let (Some(t), Some(p)) = (&s.txrx, &txrx_plan) {
+            for (f, what) in [
+                (Some(t.sidetone_hz), "sidetone"),
+                (t.rx_tone_hz, "received tone"),
+            ] {
+                if let Some(f) = f {
+                    check(
+                        f.is_finite() && f > 0.0 && f < 0.45 * fs,
+                        &format!(
+                            "the {what}'s pitch must be above 0 Hz and below 0.45 times the sample rate."
+                        ),
+                    )?;
+                }
+            }
+            let side_amp = 10f64.powf(t.sidetone_dbfs / 20.0);
+            let rx_amp = 10f64.powf(t.rx_tone_dbfs / 20.0);
+            check(
+                t.keyer_line.is_some()
+                    || side_amp + t.rx_tone_hz.map_or(0.0, |_| rx_amp) <= 1.0 + 1e-9,
+                "the sidetone and the received tone together would exceed full scale; lower them.",
+            )?;
+            end = end.max(end_of(&p.key, (EdgeShape::RaisedCosine, p.sidetone_edge_s)));
+            let keyed = |amp: f64, pitch: f64, elems: Vec<Elem>, keyed: bool| Tone {
+                amp,
+                pitch,
+                drift_hz_per_s: 0.0,
+                warmup: None,
+                rise_shape: EdgeShape::RaisedCosine,
+                rise_s: p.sidetone_edge_s,
+                fall_shape: EdgeShape::RaisedCosine,
+                fall_s: p.sidetone_edge_s,
+                chirp: ChirpLaw::None,
+                keyed,
+                backwave: 0.0,
+                hum: None,
+                elems,
+                first: 0,
+                last_on: None,
+                phase: 0.0,
+            };
+            txrx_state = Some(TxRxState {
+                key_channel: t.key_channel as usize - 1,
+                sidetone: keyed(side_amp, t.sidetone_hz, p.key.clone(), true),
+                rx_tone: t.rx_tone_hz.map(|f| keyed(rx_amp, f, Vec::new(), false)),
+                background_sigma: (0.5 * 10f64.powf(t.background_dbfs / 10.0)).sqrt(),
+                muting: p.muting.clone(),
+                // The AC coupling starts settled at the key-up level.
+                line: t.keyer_line.map(|k| {
+                    (
+                        k,
+                        k.ac_coupling_ms.map(|ms| (-1.0 / (ms * 1e-3 * fs)).exp()),
+                        k.up_fs,
+                        0.0,
+                    )
+                }),
+            });
+        }
 
         let mut peak = amp * (1.0 + s.hum.map_or(0.0, |h| h.am_percent / 100.0));
         let mut second = None;
@@ -803,10 +894,11 @@ impl Synth {
         let unit = 1.2 / s.wpm;
         let elements = elems
             .iter()
-            .map(|e| TruthElement {
+            .enumerate()
+            .map(|(i, e)| TruthElement {
                 start_s: e.t_s,
                 duration_s: e.t_e - e.t_s,
-                kind: kind_of(e.t_e - e.t_s, timing.dit_s),
+                kind: kind_of(key_durations[i], timing.dit_s),
                 rise_ms: s.rise_ms,
                 fall_ms: s.fall_ms,
                 chirp_hz: chirp_truth(chirp, e),
@@ -841,6 +933,7 @@ impl Synth {
             extra_elements: extra_truth,
             clipped_samples: 0,
             notes,
+            txrx: txrx_plan.map(|p| p.truth),
         };
         let main = Tone {
             amp,
@@ -875,6 +968,7 @@ impl Synth {
             rng: Xoshiro256PlusPlus::seed_from_u64(s.seed),
             filter,
             buf: Vec::new(),
+            txrx: txrx_state,
         })
     }
 
@@ -909,6 +1003,11 @@ impl Synth {
                 others += t.sample(n, self.fs);
             }
             let x = self.main.sample(n, self.fs) + gain * others;
+            if self.txrx.is_some() {
+                self.txrx_frame(x, frame);
+                self.frame += 1;
+                continue;
+            }
             for (c, v) in frame.iter_mut().enumerate() {
                 let noise = if self.noise_sigma > 0.0 {
                     let g: f64 = StandardNormal.sample(&mut self.rng);
@@ -944,6 +1043,60 @@ impl Synth {
         match els.get(self.mute_first) {
             Some(e) if e.t_on <= t => g,
             _ => 1.0,
+        }
+    }
+
+    /// One frame of a timing recording: the RF tone `x` with its noise (and
+    /// filter) on the RF channel; sidetone plus muted background on the key
+    /// channel.
+    fn txrx_frame(&mut self, x: f64, frame: &mut [f64]) {
+        let n = self.frame;
+        let t = n as f64 / self.fs;
+        let gauss = |sigma: f64, rng: &mut Xoshiro256PlusPlus| -> f64 {
+            if sigma > 0.0 {
+                let g: f64 = StandardNormal.sample(rng);
+                g * sigma
+            } else {
+                0.0
+            }
+        };
+        let rf_noise = gauss(self.noise_sigma, &mut self.rng);
+        let st = self.txrx.as_mut().expect("called for timing recordings");
+        let bg_noise = gauss(st.background_sigma, &mut self.rng);
+        if let Some((k, pole, px, py)) = st.line.as_mut() {
+            let v = k.up_fs + (k.down_fs - k.up_fs) * st.sidetone.envelope(t);
+            let out = match pole {
+                Some(a) => {
+                    *py = *a * (*py + v - *px);
+                    *px = v;
+                    *py
+                }
+                None => v,
+            };
+            let y = x + rf_noise;
+            let rf = match self.filter.as_mut() {
+                Some(f) => f.process(y),
+                None => y,
+            };
+            let kc = st.key_channel;
+            for (c, o) in frame.iter_mut().enumerate() {
+                *o = if c == kc { out + bg_noise } else { rf };
+            }
+            return;
+        }
+        let mut bg = bg_noise;
+        if let Some(rx) = st.rx_tone.as_mut() {
+            bg += rx.sample(n, self.fs);
+        }
+        let key = st.sidetone.sample(n, self.fs) + st.muting.gain(t) * bg;
+        let y = x + rf_noise;
+        let rf = match self.filter.as_mut() {
+            Some(f) => f.process(y),
+            None => y,
+        };
+        let kc = st.key_channel;
+        for (c, v) in frame.iter_mut().enumerate() {
+            *v = if c == kc { key } else { rf };
         }
     }
 
