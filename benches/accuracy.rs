@@ -393,7 +393,10 @@ fn carrier_tables(dir: &std::path::Path) -> usize {
     let analyse = |s: &SynthSpec, name: &str, opt: &Options| {
         let p = dir.join(format!("{name}.wav"));
         let t = cwaudit::synth::write_files(s, &p, true).expect("synth");
-        (cwaudit::analysis::analyze_file(&p, opt).expect("analysis"), t)
+        (
+            cwaudit::analysis::analyze_file(&p, opt).expect("analysis"),
+            t,
+        )
     };
     let carrier_base = || SynthSpec {
         text: "PARIS PARIS".into(),
@@ -440,7 +443,13 @@ fn carrier_tables(dir: &std::path::Path) -> usize {
             check((m - ratio).abs() <= 1.0)
         );
     }
-    for (depth, hang) in [(10.0, 0.0), (30.0, 0.0), (30.0, 300.0), (40.0, 800.0), (60.0, 300.0)] {
+    for (depth, hang) in [
+        (10.0, 0.0),
+        (30.0, 0.0),
+        (30.0, 300.0),
+        (40.0, 800.0),
+        (60.0, 300.0),
+    ] {
         let s = SynthSpec {
             snr_db: Some(30.0),
             lead_in_s: 2.0,
@@ -480,7 +489,9 @@ fn carrier_tables(dir: &std::path::Path) -> usize {
 
     println!("\n### Backwave, hum and drift\n");
     println!("700 Hz, -12 dBFS, 32-bit float, \"PARIS PARIS\" sent 3 times, SNR 40 dB. Tolerances: backwave 1 dB down to");
-    println!("-50 dB; hum AM 0.5 percentage points, FM max(10 %, 0.3 Hz); drift 0.2 Hz/min (issue 4).\n");
+    println!(
+        "-50 dB; hum AM 0.5 percentage points, FM max(10 %, 0.3 Hz); drift 0.2 Hz/min (issue 4).\n"
+    );
     println!("| case | truth | measured | floor | within |");
     println!("|---|---|---|---|---|");
     for bw in [-30.0, -40.0, -50.0, -60.0] {
@@ -559,17 +570,7 @@ fn carrier_tables(dir: &std::path::Path) -> usize {
         ..carrier_base()
     };
     let (r, t) = analyse(&s, "warmup", &Options::default());
-    let n = t.elements.len();
-    let k = (n / 10).max(3);
-    let off = |e: &[cwaudit::synth::TruthElement]| {
-        let mut v: Vec<f64> = e
-            .iter()
-            .map(|x| 30.0 * (1.0 - (-(x.start_s + 0.5 * x.duration_s) / 20.0).exp()))
-            .collect();
-        v.sort_by(f64::total_cmp);
-        v[v.len() / 2]
-    };
-    let want = off(&t.elements[n - k..]) - off(&t.elements[..k]);
+    let want = cwaudit::accuracy::warmup_change_truth_hz(&t, 30.0, 20.0);
     let m = r.summary.carrier.drift_total_hz.unwrap_or(f64::NAN);
     println!(
         "| warm-up 30 Hz, tau 20 s, over 65 s: last tenth less first | {want:.2} Hz | {m:.2} Hz (slope {:.2} Hz/min) | | {} |",

@@ -180,3 +180,20 @@ pub fn direct_obw_hz(x: &[f32], fs: f64, f0: f64) -> f64 {
         _ => f64::NAN,
     }
 }
+
+/// Truth of `drift_total_hz` for a warm-up drift of `hz` with time constant
+/// `tau_s`: the offset hz·(1 − e^(−t/τ)) at the middle of each element, the
+/// median over the last tenth of the elements less that over the first.
+pub fn warmup_change_truth_hz(truth: &crate::synth::Truth, hz: f64, tau_s: f64) -> f64 {
+    let e = &truth.elements;
+    let n = e.len();
+    let k = (n / 10).max(3).min(n);
+    let offset = |part: &[crate::synth::TruthElement]| {
+        let v: Vec<f64> = part
+            .iter()
+            .map(|x| hz * (1.0 - (-(x.start_s + 0.5 * x.duration_s) / tau_s).exp()))
+            .collect();
+        crate::dsp::stats::median(&v)
+    };
+    offset(&e[n - k..]) - offset(&e[..k])
+}

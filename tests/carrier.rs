@@ -270,17 +270,7 @@ fn drift_linear_and_warm_up() {
     let p = d.path().join("w.wav");
     let truth = write_files(&s, &p, true).unwrap();
     let r = analyze_file(&p, &Options::default()).unwrap();
-    let n = truth.elements.len();
-    let k = (n / 10).max(3);
-    let mid = |e: &[cwaudit::synth::TruthElement]| {
-        let mut v: Vec<f64> = e
-            .iter()
-            .map(|x| 30.0 * (1.0 - (-(x.start_s + 0.5 * x.duration_s) / 20.0).exp()))
-            .collect();
-        v.sort_by(f64::total_cmp);
-        v[v.len() / 2]
-    };
-    let want = mid(&truth.elements[n - k..]) - mid(&truth.elements[..k]);
+    let want = cwaudit::accuracy::warmup_change_truth_hz(&truth, 30.0, 20.0);
     let got = r.summary.carrier.drift_total_hz.unwrap();
     assert!((got - want).abs() < 1.5, "{got} vs {want}");
     assert!(r.summary.carrier.drift_hz_per_min.unwrap() > 10.0);
@@ -299,6 +289,20 @@ fn sox(args: &[&str]) -> String {
         String::from_utf8_lossy(&out.stderr)
     );
     String::from_utf8_lossy(&out.stderr).into_owned()
+}
+
+/// `sox -m` of two files at unit gain each (sox's plain -m halves them).
+fn mix(a: &Path, b: &Path, out: &Path) {
+    sox(&[
+        "-m",
+        "-v",
+        "1",
+        a.to_str().unwrap(),
+        "-v",
+        "1",
+        b.to_str().unwrap(),
+        out.to_str().unwrap(),
+    ]);
 }
 
 /// A value from `sox FILE -n stat` ("Maximum amplitude" and so on).
@@ -394,16 +398,7 @@ fn sox_constant_tone_under_the_keying_is_backwave() {
     let rms = stat(&tone, "RMS     amplitude");
     let tone_dbfs = 20.0 * (rms * 2f64.sqrt()).log10();
     let mixed = d.path().join("mixed.wav");
-    sox(&[
-        "-m",
-        "-v",
-        "1",
-        keyed.to_str().unwrap(),
-        "-v",
-        "1",
-        tone.to_str().unwrap(),
-        mixed.to_str().unwrap(),
-    ]);
+    mix(&keyed, &tone, &mixed);
     let r = analyze_file(&mixed, &Options::default()).unwrap();
     let want = tone_dbfs - (-12.0);
     let got = r.summary.carrier.backwave_db.unwrap();
@@ -449,16 +444,7 @@ fn sox_two_tone_bursts_at_a_known_level_difference() {
     let a = mk("a.wav", "700", "0.3", "0.1");
     let b = mk("b.wav", "1500", "0.03", "0.2");
     let m = d.path().join("m.wav");
-    sox(&[
-        "-m",
-        "-v",
-        "1",
-        a.to_str().unwrap(),
-        "-v",
-        "1",
-        b.to_str().unwrap(),
-        m.to_str().unwrap(),
-    ]);
+    mix(&a, &b, &m);
     let opt = Options {
         sidetone_hz: Some(700.0),
         ..Default::default()

@@ -248,7 +248,10 @@ fn carrier_lines(o: &mut String, r: &Report) {
             other => other,
         };
         let sig = match st.signal_hz {
-            Some(f) => format!("the signal at {f:.1} Hz ({:.1} dBFS, {from})", st.signal_dbfs),
+            Some(f) => format!(
+                "the signal at {f:.1} Hz ({:.1} dBFS, {from})",
+                st.signal_dbfs
+            ),
             None => format!("the given signal level of {:.1} dBFS", st.signal_dbfs),
         };
         let _ = writeln!(
