@@ -1,6 +1,8 @@
 //! The demo: an invented bench scenario. A builder's low-power transmitter
-//! keys hard and chirps; they add a shaping network to the keying stage and
-//! stiffen the oscillator's supply, then record again. Both recordings are
+//! keys hard, chirps, carries ripple from an unregulated supply and leaks a
+//! little carrier when the key is up; they add a shaping network to the
+//! keying stage, regulate the supply and mend the driver's bias, then record
+//! again. Both recordings are
 //! synthesized with known truth, analysed, and the reports printed.
 
 use std::path::{Path, PathBuf};
@@ -8,7 +10,7 @@ use std::path::{Path, PathBuf};
 use crate::analysis::{analyze_file, Options};
 use crate::error::{CwError, Result};
 use crate::present;
-use crate::synth::{self, Chirp, EdgeShape, SynthSpec};
+use crate::synth::{self, Chirp, EdgeShape, Hum, SynthSpec};
 
 fn scenario() -> [(&'static str, &'static str, SynthSpec); 2] {
     let base = SynthSpec {
@@ -29,6 +31,12 @@ fn scenario() -> [(&'static str, &'static str, SynthSpec); 2] {
             depth_hz: 40.0,
             tau_ms: 12.0,
         },
+        hum: Some(Hum {
+            frequency_hz: 100.0,
+            am_percent: 4.0,
+            fm_hz: 3.0,
+        }),
+        backwave_db: Some(-38.0),
         ..base.clone()
     };
     let after = SynthSpec {
@@ -46,12 +54,12 @@ fn scenario() -> [(&'static str, &'static str, SynthSpec); 2] {
     [
         (
             "before.wav",
-            "Before: keyed straight, oscillator on a soft supply",
+            "Before: keyed straight, unregulated supply, driver leaking when key-up",
             before,
         ),
         (
             "after.wav",
-            "After: shaping network in the keying stage, regulated supply",
+            "After: shaping network in the keying stage, regulated supply, driver bias mended",
             after,
         ),
     ]
@@ -78,13 +86,20 @@ pub fn run(dir: Option<&Path>) -> Result<()> {
         let truth = synth::write_files(&spec, &path, true)?;
         println!("--- {title} ---");
         println!(
-            "    truth: rise {:.1} ms, fall {:.1} ms, chirp {:.1} Hz at key-down, {:.0} WPM",
+            "    truth: rise {:.1} ms, fall {:.1} ms, chirp {:.1} Hz at key-down, {:.0} WPM, {}, {}",
             spec.rise_ms,
             spec.fall_ms,
             truth.elements.first().map_or(0.0, |e| e.chirp_hz),
-            spec.wpm
+            spec.wpm,
+            spec.hum.map_or("no hum".to_string(), |h| format!(
+                "hum at {:.0} Hz with {:.1} % AM and {:.1} Hz FM",
+                h.frequency_hz, h.am_percent, h.fm_hz
+            )),
+            spec.backwave_db
+                .map_or("no backwave".to_string(), |b| format!("backwave {b:.0} dB"))
         );
-        let rep = analyze_file(&path, &Options::default())?;
+        let mut rep = analyze_file(&path, &Options::default())?;
+        rep.verdicts = crate::judge::judge(&rep.summary, &crate::judge::Profile::defaults());
         print!("{}", present::text::render(&rep, false));
         println!();
     }

@@ -65,6 +65,11 @@ pub struct Verdict {
     pub margin: Option<f64>,
     /// Where the limit comes from.
     pub source: String,
+    /// When the figure is below what the recording resolves (null value):
+    /// that floor. The true value is at most this, so a floor inside every
+    /// upper limit passes.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub below: Option<f64>,
 }
 
 impl Verdict {
@@ -130,7 +135,22 @@ pub fn judge(summary: &Summary, profile: &Profile) -> Vec<Verdict> {
                 .clone()
                 .or(m.default_member().map(str::to_string));
             let value = m.read(&json, stat.as_deref());
-            let (status, margin) = assess(value, &r.limit);
+            let (mut status, mut margin) = assess(value, &r.limit);
+            let below = floor_of(&json, m.name, stat.as_deref()).filter(|_| value.is_none());
+            if let Some(f) = below {
+                // At most f: judged by the upper limits only, and only a pass
+                // can be concluded (a floor above a limit says nothing).
+                let upper = Limit {
+                    min: None,
+                    warn_min: None,
+                    ..r.limit.clone()
+                };
+                let (st, mg) = assess(Some(f), &upper);
+                if st == Status::Pass && (upper.max.is_some() || upper.warn_max.is_some()) {
+                    status = Status::Pass;
+                    margin = mg;
+                }
+            }
             Verdict {
                 metric: m.name.to_string(),
                 unit: m.unit_of(stat.as_deref()).to_string(),
@@ -143,9 +163,21 @@ pub fn judge(summary: &Summary, profile: &Profile) -> Vec<Verdict> {
                 status,
                 margin,
                 source: r.limit.source.clone(),
+                below,
             }
         })
         .collect()
+}
+
+/// The resolution floor of a figure that is null because it is below it:
+/// `backwave_floor_db` for `backwave_db`, the hum's AM and FM floors.
+fn floor_of(json: &serde_json::Value, metric: &str, stat: Option<&str>) -> Option<f64> {
+    match (metric, stat) {
+        ("backwave_db", _) => json.get("backwave_floor_db")?.as_f64(),
+        ("hum", Some("am_percent")) => json.get("hum")?.get("am_floor_percent")?.as_f64(),
+        ("hum", Some("fm_hz")) => json.get("hum")?.get("fm_floor_hz")?.as_f64(),
+        _ => None,
+    }
 }
 
 /// The result of a whole recording: fail if any figure fails, warn if any

@@ -227,3 +227,25 @@ fn metric_names_are_unique_and_spread_members_match_the_stats_struct() {
         assert_eq!(metrics::find(n).unwrap().read(&j, None), Some(want));
     }
 }
+
+#[test]
+fn a_figure_below_its_floor_passes_only_when_the_floor_does() {
+    // The built-in backwave limit fails above -40 dB and warns above -50 dB
+    // (common practice). A backwave below a -57.5 dB floor is at most -57.5:
+    // a pass, with the margin to -40. A floor of -35 dB says nothing: not
+    // measured.
+    let p = Profile::defaults();
+    let at = |floor: f64| {
+        let mut s = Summary::default();
+        s.carrier.backwave_floor_db = Some(floor);
+        judge(&s, &p)
+            .into_iter()
+            .find(|v| v.metric == "backwave_db")
+            .unwrap()
+    };
+    let v = at(-57.5);
+    assert_eq!((v.status, v.below, v.value), (Status::Pass, Some(-57.5), None));
+    assert!((v.margin.unwrap() - 17.5).abs() < 1e-9);
+    assert_eq!(at(-45.0).status, Status::NotMeasured);
+    assert_eq!(at(-35.0).status, Status::NotMeasured);
+}

@@ -168,7 +168,11 @@ fn figure_table(o: &mut String, r: &Report) {
         };
         let row = format!(
             "  {name:<30} {:>10}  {:<6} {vtext:<12} {ltext:<20} {mtext:>8}",
-            value.map_or("n/a".to_string(), |x| format!("{x:.p$}")),
+            match (value, verdict.and_then(|v| v.below)) {
+                (Some(x), _) => format!("{x:.p$}"),
+                (None, Some(f)) => format!("<{f:.p$}"),
+                (None, None) => "n/a".to_string(),
+            },
             m.unit_of(stat.as_deref()),
         );
         let _ = writeln!(o, "{}", row.trim_end());
