@@ -2,6 +2,7 @@
 //! DSP measured into a [`Report`].
 
 pub mod element;
+pub mod live;
 pub mod report;
 pub mod spectral;
 pub mod timing;
@@ -37,7 +38,7 @@ pub struct Options {
 }
 
 /// Which tone to follow, from the survey and the options.
-fn choose(s: &SurveyResult, opt: &Options, path: &Path) -> Result<Option<Candidate>> {
+pub(crate) fn choose(s: &SurveyResult, opt: &Options, path: &Path) -> Result<Option<Candidate>> {
     if let Some(c) = opt.channel {
         if c == 0 || c as usize > s.channels.len() {
             return Err(CwError::Usage(format!(
