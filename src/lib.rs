@@ -8,6 +8,8 @@
 pub mod accuracy;
 pub mod analysis;
 pub mod batch;
+#[cfg(feature = "capture")]
+pub mod capture;
 pub mod cli;
 pub mod compare;
 pub mod demo;

@@ -3,7 +3,8 @@
 //! [`ToneTracker`] measures every element, first with the file lookahead
 //! (so the state levels are established from the whole stretch) and then
 //! with the short live lookahead. What is kept is bounded: the initial
-//! stretch once, the last `window` elements, and one spectrum frame.
+//! stretch once, the last `window` elements (with their frequency traces,
+//! for the mean-element chirp), and one spectrum frame.
 
 use std::collections::VecDeque;
 use std::path::Path;
@@ -294,7 +295,6 @@ impl LiveAnalyzer {
         for mut e in tracker.take_elements() {
             e.start_s += *t0_s;
             e.end_s += *t0_s;
-            e.trace = Vec::new();
             e.rise_view = Vec::new();
             e.fall_view = Vec::new();
             self.count += 1;
@@ -359,6 +359,27 @@ impl LiveAnalyzer {
         };
         let freqs = col(&|e| Some(e.frequency_hz));
         let band = dc.band();
+        // The mean-element chirp over the window, as `build_report` does.
+        let as_report: Vec<super::report::Element> = els
+            .iter()
+            .zip(&t.kinds)
+            .enumerate()
+            .map(|(i, (e, k))| super::report::Element {
+                index: i + 1,
+                start_s: e.start_s,
+                duration_s: e.end_s - e.start_s,
+                kind: *k,
+                rise_ms: None,
+                fall_ms: None,
+                chirp_hz: e.chirp_hz,
+                chirp_raw_hz: e.chirp_raw_hz,
+                chirp_noise_hz: e.chirp_noise_hz,
+                level_dbfs: 0.0,
+                frequency_hz: e.frequency_hz,
+                gap_before_s: None,
+                trace: e.trace.clone(),
+            })
+            .collect();
         Summary {
             keyed_signal_found: !els.is_empty(),
             tone_hz: (!freqs.is_empty()).then(|| median(&freqs)),
@@ -373,6 +394,7 @@ impl LiveAnalyzer {
             fall_ms: spread(&col(&|e| e.fall_s.map(|v| v * 1e3))),
             chirp_hz: spread(&col(&|e| Some(e.chirp_hz))),
             chirp_raw_hz: spread(&col(&|e| Some(e.chirp_raw_hz))),
+            chirp_mean_element_hz: super::ensemble_chirp(&as_report),
             element_count: els.len(),
             dit_count: t
                 .kinds

@@ -78,6 +78,13 @@ fn live_figures_match_the_file_analysis_and_the_truth() {
     assert!((lr.median - 4.0).abs() < 0.4, "{lr:?}");
     assert!((lfa.median - 6.0).abs() < 0.6, "{lfa:?}");
     assert!((lc.median - truth.elements[0].chirp_hz).abs() < 0.2 * truth.elements[0].chirp_hz);
+    // The mean-element chirp (judged by the default limits) is computed
+    // over the window as over the file: same elements here.
+    let (lm, fm) = (
+        lf.chirp_mean_element_hz.unwrap(),
+        ff.chirp_mean_element_hz.unwrap(),
+    );
+    assert!((lm - fm).abs() < 1.0, "{lm} {fm}");
     assert!((lf.wpm.unwrap() - 22.0).abs() < 0.3);
     // Element times are stream times: each 50 % fall within 1 ms of the truth.
     for (e, t) in seen.iter().zip(&truth.elements) {
