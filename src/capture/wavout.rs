@@ -175,7 +175,7 @@ mod tests {
             let codes = [-1.0, -0.5, 0.0, 0.25, 0.999, 1.5];
             let x: Vec<f32> = codes
                 .iter()
-                .map(|c| ((c * full) as f64).round() as f32 / full as f32)
+                .map(|c: &f64| ((c * full).round() / full) as f32)
                 .collect();
             let mut s = WavSink::create(&p, 8000, 2, f, false).unwrap();
             s.write(&x).unwrap();
@@ -188,12 +188,12 @@ mod tests {
                 r.samples::<f32>().map(|v| v.unwrap() as f64).collect()
             } else {
                 r.samples::<i32>()
-                    .map(|v| v.unwrap() as f64 / full as f64)
+                    .map(|v| v.unwrap() as f64 / full)
                     .collect()
             };
             for (a, b) in x.iter().zip(&back) {
                 // Above full scale (1.5) is clamped to the largest code.
-                let want = (*a as f64).min((full as f64 - 1.0) / full as f64).max(-1.0);
+                let want = (*a as f64).min((full - 1.0) / full).max(-1.0);
                 let want = if f == Format::F32 { *a as f64 } else { want };
                 assert_eq!(*b, want, "{f:?}");
             }
