@@ -382,3 +382,109 @@ pub fn draw(f: &mut Frame, snap: &Snapshot, ui: &UiState) {
         keys,
     );
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::analysis::live::{LiveAnalyzer, LiveConfig};
+    use crate::judge::Profile;
+    use crate::synth::{self, SynthSpec};
+    use ratatui::backend::TestBackend;
+    use ratatui::Terminal;
+
+    fn snapshot(rise_ms: f64) -> Snapshot {
+        let spec = SynthSpec {
+            text: "PARIS PARIS PARIS".into(),
+            rise_ms,
+            fall_ms: 5.0,
+            snr_db: Some(35.0),
+            ..Default::default()
+        };
+        let (x, _) = synth::render(&spec).unwrap();
+        let mut a = LiveAnalyzer::new(48_000, 1, LiveConfig::default()).unwrap();
+        a.push(&x);
+        let view = a.view();
+        let verdicts = judge::judge(&view.summary, &Profile::defaults());
+        Snapshot {
+            view,
+            verdicts,
+            dropped_buffers: 3,
+            made: std::time::Instant::now(),
+        }
+    }
+
+    fn render(s: &Snapshot, ui: &UiState) -> (Vec<String>, ratatui::buffer::Buffer) {
+        let mut t = Terminal::new(TestBackend::new(120, 40)).unwrap();
+        t.draw(|f| draw(f, s, ui)).unwrap();
+        let b = t.backend().buffer().clone();
+        let lines = (0..b.area.height)
+            .map(|y| {
+                (0..b.area.width)
+                    .map(|x| b[(x, y)].symbol())
+                    .collect::<String>()
+            })
+            .collect();
+        (lines, b)
+    }
+
+    #[test]
+    fn the_screen_shows_the_figures_their_verdicts_and_the_mode() {
+        // Synthesizer truth: 5 ms raised-cosine edges, 700 Hz, 20 WPM. The
+        // built-in limits pass 2-12 ms edges.
+        let s = snapshot(5.0);
+        let mut ui = UiState {
+            source: "test (48000 Hz, 1 ch, s16)".into(),
+            ..Default::default()
+        };
+        let (lines, _) = render(&s, &ui);
+        let all = lines.join("\n");
+        let row = lines.iter().find(|l| l.contains("││rise")).expect(&all);
+        let med: f64 = row
+            .split("││rise")
+            .nth(1)
+            .unwrap()
+            .split_whitespace()
+            .next()
+            .unwrap()
+            .parse()
+            .unwrap();
+        assert!((med - 5.0).abs() < 0.3, "{row}");
+        assert!(row.contains("2-12") && row.contains("PASS"), "{row}");
+        assert!(
+            all.contains(" LIVE ") && all.contains("dropped buffers 3"),
+            "{all}"
+        );
+        assert!(
+            all.contains(&format!("elements {} ", s.view.count)),
+            "{all}"
+        );
+        assert!(all.contains("speed") && all.contains("20.0 WPM"), "{all}");
+        // The waterfall: a row of 60 columns, -100 dBFS but -10 dBFS in
+        // column 30, drawn 118 wide: '@' at 30/60 of the width, blanks
+        // elsewhere; the newest row on top.
+        let mut db = vec![-100.0f32; 60];
+        db[30] = -10.0;
+        ui.add_row(&db);
+        let (lines, _) = render(&s, &ui);
+        let wrow = lines.iter().position(|l| l.contains(" spectrum ")).unwrap() + 1;
+        let w: Vec<char> = lines[wrow].chars().collect();
+        let at: Vec<usize> = (0..w.len()).filter(|&i| w[i] == '@').collect();
+        assert_eq!(at, vec![1 + 59, 1 + 60], "{}", lines[wrow]);
+        assert!(w[1..59].iter().all(|c| *c == ' '));
+        ui.frozen = true;
+        let (lines, _) = render(&s, &ui);
+        assert!(lines.join("\n").contains(" HELD "));
+    }
+
+    #[test]
+    fn a_failing_figure_is_shown_as_fail_in_red() {
+        // 1 ms edges: below the built-in 2 ms minimum.
+        let s = snapshot(1.0);
+        let (lines, b) = render(&s, &UiState::default());
+        let y = lines.iter().position(|l| l.contains("││rise")).unwrap();
+        let x = lines[y].find("FAIL").expect(&lines[y]);
+        // Columns count characters; the box lines are one cell each.
+        let col = lines[y][..x].chars().count() as u16;
+        assert_eq!(b[(col, y as u16)].fg, Color::Red);
+    }
+}
