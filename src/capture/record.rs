@@ -134,8 +134,8 @@ pub struct Recorded {
     pub dropped_frames: u64,
 }
 
-/// Sets `flag` on Ctrl-C (SIGINT) or SIGTERM. Only the first call per
-/// process installs the handler; later ones share its flag.
+/// A flag set on Ctrl-C (SIGINT), SIGTERM or SIGHUP. Only the first call
+/// per process installs the handler; later ones share its flag.
 pub fn stop_flag() -> Arc<AtomicBool> {
     static FLAG: std::sync::OnceLock<Arc<AtomicBool>> = std::sync::OnceLock::new();
     FLAG.get_or_init(|| {
