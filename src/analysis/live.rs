@@ -277,8 +277,8 @@ impl LiveAnalyzer {
                 .copied(),
         );
         tr.push(&self.mono);
+        // The backlog is segmented, with these levels, from the next push on.
         tr.set_lookahead_s(LIVE_LOOKAHEAD_S);
-        tr.push(&[]);
         self.state = State::Tracking {
             tracker: Box::new(tr),
             channel: cand.channel,

@@ -95,13 +95,9 @@ pub fn run(a: &WatchArgs) -> Result<i32> {
         None => None,
     };
     let (feeder, cons, shared) = ring((RING_S * c.rate as f64) as usize, c.channels, None);
-    let (h, rx, ctl) = spawn(cons, shared.clone(), c.channels, an, profile, save);
     let stream = open_stream(&dev, &c, feeder, |_| {})?;
-    stream
-        .play()
-        .map_err(|e| CwError::Usage(format!("device {} could not start ({e})", c.name)))?;
+    let (h, rx, ctl) = spawn(cons, shared.clone(), c.channels, an, profile, save);
     let stop = stop_flag();
-
     let mut ui = UiState {
         source: format!(
             "{} ({} Hz, {} ch, {})",
@@ -113,23 +109,29 @@ pub fn run(a: &WatchArgs) -> Result<i32> {
         save: a.save.as_ref().map(|p| p.display().to_string()),
         ..Default::default()
     };
-    let shown = {
-        let _guard = TermGuard;
-        enable_raw_mode()
-            .map_err(|e| CwError::Usage(format!("the terminal cannot be used ({e})")))?;
-        execute!(std::io::stdout(), EnterAlternateScreen)
-            .map_err(|e| CwError::Usage(format!("the terminal cannot be used ({e})")))?;
-        let mut term =
-            ratatui::Terminal::new(ratatui::backend::CrosstermBackend::new(std::io::stdout()))
-                .map_err(|e| CwError::Usage(format!("the terminal cannot be used ({e})")))?;
-        ui_loop(&mut term, &rx, &mut ui, &ctl.reset, &stop)?
-    };
-    // Stop the input first, so the analysis thread can empty the ring.
+    let shown = stream
+        .play()
+        .map_err(|e| CwError::Usage(format!("device {} could not start ({e})", c.name)))
+        .and_then(|_| {
+            let _guard = TermGuard;
+            let term_err =
+                |e: std::io::Error| CwError::Usage(format!("the terminal cannot be used ({e})"));
+            enable_raw_mode().map_err(term_err)?;
+            execute!(std::io::stdout(), EnterAlternateScreen).map_err(term_err)?;
+            let mut term =
+                ratatui::Terminal::new(ratatui::backend::CrosstermBackend::new(std::io::stdout()))
+                    .map_err(term_err)?;
+            ui_loop(&mut term, &rx, &mut ui, &ctl.reset, &stop)
+        });
+    // However the display ended: stop the input first, so the analysis
+    // thread can empty the ring, then let it finish the --save file.
     drop(stream);
     ctl.quit.store(true, Ordering::Release);
     let ended = h
         .join()
-        .map_err(|_| CwError::Usage("the analysis thread failed".into()))??;
+        .map_err(|_| CwError::Usage("the analysis thread failed".into()))?;
+    let shown = shown?;
+    let ended = ended?;
     let last = ended.last.or(shown);
     if let Some(s) = &last {
         crate::cli::emit(&closing_text(s));
