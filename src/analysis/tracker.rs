@@ -289,11 +289,6 @@ impl ToneTracker {
     pub fn take_elements(&mut self) -> Vec<TrackedElement> {
         std::mem::take(&mut self.elements)
     }
-    /// Input time the segmenter has reached, s: every element whose key-up
-    /// is earlier than this minus `POST_S` has been measured.
-    pub fn segmented_s(&self) -> f64 {
-        self.dc.time_of(self.seg_q)
-    }
 
     pub fn downconverter(&self) -> &Downconverter {
         &self.dc
