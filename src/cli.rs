@@ -47,6 +47,17 @@ pub enum Command {
     /// Measure transmit/receive timing in a two-channel recording (key channel and monitor receiver).
     #[command(after_help = TIMING_HELP)]
     Timing(TimingArgs),
+    /// List the sound card's input devices and what each can record.
+    #[cfg(feature = "capture")]
+    Devices,
+    /// Record the receiver's audio from the sound card to a WAV file.
+    #[cfg(feature = "capture")]
+    #[command(after_help = CAPTURE_HELP)]
+    Record(crate::capture::record::RecordArgs),
+    /// Measure live from the sound card while you adjust: figures after every element.
+    #[cfg(feature = "capture")]
+    #[command(after_help = CAPTURE_HELP)]
+    Watch(crate::capture::watch::WatchArgs),
 }
 
 const TIMING_HELP: &str = "\
@@ -110,6 +121,18 @@ fn timing_cmd(a: &TimingArgs) -> Result<i32> {
     }
     Ok(0)
 }
+
+#[cfg(feature = "capture")]
+const CAPTURE_HELP: &str = "\
+Safety: transmit only where your licence allows, and into a dummy load. Keep
+RF out of the receiver and the sound card: couple the monitor receiver loosely
+or through an attenuator, and feed the sound card from the receiver's audio
+output only. Mind RF exposure and the high voltages in valve finals and mains
+supplies. Local regulations and licensed practice come first; cwaudit
+measures, it does not certify.
+
+Exit codes: 0 = done, 1 = (record --analyze) a figure failed its limit,
+2 = the device, the file or the command line could not be used.";
 
 #[derive(Args, Debug)]
 pub struct AnalyzeArgs {
@@ -227,6 +250,19 @@ fn profile(p: Option<&std::path::Path>) -> Result<Profile> {
         Some(p) => Profile::load(p),
         None => Ok(Profile::defaults()),
     }
+}
+
+/// Analyses one recording with the built-in limits and prints the text
+/// report (`record --analyze`); returns the exit code.
+pub fn analyze_one(path: &std::path::Path) -> Result<i32> {
+    let mut rep = analyze_file(path, &Options::default())?;
+    rep.verdicts = judge::judge(&rep.summary, &Profile::defaults());
+    emit(&present::text::render(&rep, false));
+    if !rep.summary.keyed_signal_found {
+        eprintln!("cwaudit: {}: no keyed tone was found", path.display());
+        return Ok(2);
+    }
+    Ok(judge::exit_code(&rep.verdicts))
 }
 
 fn analyze(a: &AnalyzeArgs) -> Result<i32> {
@@ -373,6 +409,17 @@ pub fn main() -> i32 {
         Command::Compare(a) => compare(a).map_err(|e| e.to_string()),
         Command::Limits(a) => limits(a).map_err(|e| e.to_string()),
         Command::Timing(a) => timing_cmd(a).map_err(|e| e.to_string()),
+        #[cfg(feature = "capture")]
+        Command::Devices => crate::capture::devices::list()
+            .map(|l| {
+                emit(&crate::capture::devices::render(&l));
+                0
+            })
+            .map_err(|e| e.to_string()),
+        #[cfg(feature = "capture")]
+        Command::Record(a) => crate::capture::record::run(a).map_err(|e| e.to_string()),
+        #[cfg(feature = "capture")]
+        Command::Watch(a) => crate::capture::watch::run(a).map_err(|e| e.to_string()),
     };
     match res {
         Ok(c) => c,

@@ -9,6 +9,8 @@ pub mod accuracy;
 pub mod accuracy_txrx;
 pub mod analysis;
 pub mod batch;
+#[cfg(feature = "capture")]
+pub mod capture;
 pub mod cli;
 pub mod compare;
 pub mod demo;

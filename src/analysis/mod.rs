@@ -3,6 +3,7 @@
 
 pub mod carrier;
 pub mod element;
+pub mod live;
 pub mod muting;
 pub mod report;
 pub mod spectral;

@@ -31,6 +31,43 @@ pub const MIN_GAP_S: f64 = 0.004;
 /// Gap samples this close to an edge do not count towards the noise, s.
 pub const NOISE_GUARD_S: f64 = 0.025;
 
+/// How a tracker runs. The default is what file analysis uses; live input
+/// uses `TrackerConfig::live` once the state levels are established, and
+/// then measures each element about 0.1 s after its key-up instead of 3 s.
+/// The measurement itself is the same either way.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct TrackerConfig {
+    /// Delay of the segmenter behind the newest sample, s. At least
+    /// `POST_S + MIN_GAP_S`, so each capture still gets its `POST_S` tail.
+    pub lookahead_s: f64,
+    /// Downconverter hop in input samples (None: the full block, fastest).
+    pub hop: Option<usize>,
+}
+
+impl Default for TrackerConfig {
+    fn default() -> Self {
+        TrackerConfig {
+            lookahead_s: LOOKAHEAD_S,
+            hop: None,
+        }
+    }
+}
+
+/// Shortest lookahead that still leaves the capture its full tail, s.
+pub const LIVE_LOOKAHEAD_S: f64 = POST_S + MIN_GAP_S + 0.004;
+/// Downconverter hop for live input, s (a block every ~10 ms of input).
+pub const LIVE_HOP_S: f64 = 0.01;
+
+impl TrackerConfig {
+    /// Low-latency setting for live input at sample rate `fs`.
+    pub fn live(fs: u32) -> TrackerConfig {
+        TrackerConfig {
+            lookahead_s: LIVE_LOOKAHEAD_S,
+            hop: Some(((fs as f64 * LIVE_HOP_S) as usize).max(16)),
+        }
+    }
+}
+
 /// One element as the tracker reports it (times in the input's time base).
 #[derive(Clone, Debug)]
 pub struct TrackedElement {
@@ -251,13 +288,22 @@ const HUM_GUARD_S: f64 = 0.002;
 
 impl ToneTracker {
     pub fn new(fs: u32, center_hz: f64) -> ToneTracker {
-        Self::with_band(fs, Band::envelope(fs as f64, center_hz))
+        ToneTracker::with_config(fs, center_hz, TrackerConfig::default())
+    }
+
+    pub fn with_config(fs: u32, center_hz: f64, cfg: TrackerConfig) -> ToneTracker {
+        Self::with_band_config(fs, Band::envelope(fs as f64, center_hz), cfg)
     }
 
     /// A tracker whose analysis band is `band` (e.g. with other tones notched out).
     pub fn with_band(fs: u32, band: Band) -> ToneTracker {
+        Self::with_band_config(fs, band, TrackerConfig::default())
+    }
+
+    /// A tracker with its own band and configuration.
+    pub fn with_band_config(fs: u32, band: Band, cfg: TrackerConfig) -> ToneTracker {
         let center_hz = band.center_hz;
-        let dc = Downconverter::new(fs, band);
+        let dc = Downconverter::with_hop(fs, band, cfg.hop);
         let fs_d = dc.out_rate_hz();
         let win = ((DETECT_WINDOW_S * fs_d).round() as usize) | 1;
         let s = |x: f64| (x * fs_d).round() as u64;
@@ -274,7 +320,7 @@ impl ToneTracker {
             since_levels: 0,
             seg: Segmenter::new(s(MIN_MARK_S), s(MIN_GAP_S)),
             seg_q: 0,
-            lookahead: s(LOOKAHEAD_S),
+            lookahead: s(cfg.lookahead_s.max(POST_S + MIN_GAP_S)),
             pre: s(PRE_S),
             post: s(POST_S),
             max_el: s(MAX_ELEMENT_S),
@@ -298,6 +344,18 @@ impl ToneTracker {
             fs_d,
             dc,
         }
+    }
+
+    /// Changes the segmenter's delay (live input: long while the state
+    /// levels build up, then short). Shortening it segments the backlog at
+    /// the next push.
+    pub fn set_lookahead_s(&mut self, lookahead_s: f64) {
+        self.lookahead = (lookahead_s.max(POST_S + MIN_GAP_S) * self.fs_d).round() as u64;
+    }
+    /// Takes the elements measured so far out of the tracker (live input
+    /// keeps only the recent ones, so memory stays bounded).
+    pub fn take_elements(&mut self) -> Vec<TrackedElement> {
+        std::mem::take(&mut self.elements)
     }
 
     pub fn downconverter(&self) -> &Downconverter {

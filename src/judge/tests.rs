@@ -244,7 +244,10 @@ fn a_figure_below_its_floor_passes_only_when_the_floor_does() {
             .unwrap()
     };
     let v = at(-57.5);
-    assert_eq!((v.status, v.below, v.value), (Status::Pass, Some(-57.5), None));
+    assert_eq!(
+        (v.status, v.below, v.value),
+        (Status::Pass, Some(-57.5), None)
+    );
     assert!((v.margin.unwrap() - 17.5).abs() < 1e-9);
     assert_eq!(at(-45.0).status, Status::NotMeasured);
     assert_eq!(at(-35.0).status, Status::NotMeasured);
