@@ -993,3 +993,48 @@ fn random_inputs_never_panic() {
         assert!(res.is_ok(), "input {i} panicked ({} bytes)", b.len());
     }
 }
+
+#[test]
+fn recording_cut_during_a_key_down_keeps_speed_and_kinds() {
+    // A 20 WPM recording cut 16 ms after a dah's rise (and another starting
+    // inside a dah): the cut element must not pass for a dit and drag the
+    // dit/dah split and the speed with it. Truth: the synthesizer's 20 WPM.
+    use cwaudit::analysis::{analyze_file, Options};
+    use cwaudit::synth::{render, SynthSpec};
+    let spec = SynthSpec {
+        snr_db: Some(30.0),
+        repeat: 3,
+        ..Default::default()
+    };
+    let (x, truth) = render(&spec).unwrap();
+    let dir = tempfile::tempdir().unwrap();
+    let write = |name: &str, from_s: f64, to_s: f64| {
+        let p = dir.path().join(name);
+        let w = hound::WavSpec {
+            channels: 1,
+            sample_rate: 48_000,
+            bits_per_sample: 32,
+            sample_format: hound::SampleFormat::Float,
+        };
+        let mut wr = hound::WavWriter::create(&p, w).unwrap();
+        for v in &x[(from_s * 48_000.0) as usize..(to_s * 48_000.0) as usize] {
+            wr.write_sample(*v).unwrap();
+        }
+        wr.finalize().unwrap();
+        p
+    };
+    let dah = truth
+        .elements
+        .iter()
+        .find(|e| e.duration_s > 0.1 && e.start_s > 4.0)
+        .unwrap();
+    let end = write("end.wav", 0.0, dah.start_s + 0.016);
+    let start = write("start.wav", dah.start_s + 0.02, truth.duration_s);
+    for p in [end, start] {
+        let r = analyze_file(&p, &Options::default()).unwrap();
+        let s = &r.summary;
+        assert!((s.wpm.unwrap() - 20.0).abs() < 0.2, "{:?}", s.wpm);
+        assert!((s.dah_dit_ratio.unwrap() - 3.0).abs() < 0.1);
+        assert!(r.warnings.iter().any(|w| w.contains("starts or ends during a key-down")));
+    }
+}

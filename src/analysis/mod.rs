@@ -303,7 +303,29 @@ pub fn build_report(input: InputInfo, tr: &mut ToneTracker, fs: u32) -> Report {
                 .map(|n| n.start_s - els[i].end_s)
         })
         .collect();
-    let t = timing::analyse(&durations, &gaps);
+    // Elements the recording cut at its start or end keep their place in
+    // the list but stay out of the speed and the dit/dah clustering.
+    let whole: Vec<usize> = (0..els.len()).filter(|&i| !els[i].truncated).collect();
+    let mut t = timing::analyse(
+        &whole.iter().map(|&i| durations[i]).collect::<Vec<f64>>(),
+        &whole.iter().map(|&i| gaps[i]).collect::<Vec<Option<f64>>>(),
+    );
+    let unit = t.unit_s;
+    let mut kinds = t.kinds.iter();
+    t.kinds = (0..els.len())
+        .map(|i| {
+            if els[i].truncated {
+                // What it can be: a dah only if it lasted longer than 2 units.
+                if unit.is_some_and(|u| durations[i] > 2.0 * u) {
+                    report::Kind::Dah
+                } else {
+                    report::Kind::Dit
+                }
+            } else {
+                *kinds.next().expect("one kind per whole element")
+            }
+        })
+        .collect();
     let dc = tr.downconverter();
     let band = dc.band();
     let noise = tr.noise_power();

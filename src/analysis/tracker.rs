@@ -28,6 +28,9 @@ pub const MAX_ELEMENT_S: f64 = 20.0;
 /// Marks and gaps shorter than this are glitches (150 WPM would be 8 ms), s.
 pub const MIN_MARK_S: f64 = 0.004;
 pub const MIN_GAP_S: f64 = 0.004;
+/// A 50 % instant this close to the start or end of the recording marks an
+/// element the recording cut, s.
+pub const TRUNCATED_S: f64 = 0.005;
 /// Gap samples this close to an edge do not count towards the noise, s.
 pub const NOISE_GUARD_S: f64 = 0.025;
 
@@ -84,6 +87,9 @@ pub struct TrackedElement {
     pub chirp_noise_hz: f64,
     /// True when the key-down was longer than `MAX_ELEMENT_S` and was cut.
     pub cut: bool,
+    /// True when the recording starts or ends during this key-down: its
+    /// duration is not the keying's, and the cut edge is not measured.
+    pub truncated: bool,
     /// Frequency trace: (s since 50 % rise, Hz deviation from settled).
     pub trace: Vec<(f32, f32)>,
     /// Rising and falling edge envelopes on the `EDGE_VIEW_*` grid,
@@ -278,6 +284,8 @@ pub struct ToneTracker {
     mean_rise: EdgeAverage,
     mean_fall: EdgeAverage,
     hum: HumAcc,
+    /// Input samples pushed so far.
+    input_samples: u64,
     /// Thinning level of the kept traces (`trace_kept`) and their points.
     trace_level: u32,
     trace_points: usize,
@@ -333,6 +341,7 @@ impl ToneTracker {
                 ..Default::default()
             },
             hum: HumAcc::new(fs_d),
+            input_samples: 0,
             out: Vec::new(),
             elements: Vec::new(),
             unmeasured: 0,
@@ -416,6 +425,7 @@ impl ToneTracker {
 
     /// Feeds one channel's samples.
     pub fn push(&mut self, samples: &[f32]) {
+        self.input_samples += samples.len() as u64;
         let mut out = std::mem::take(&mut self.out);
         out.clear();
         self.dc.push(samples, &mut out);
@@ -428,6 +438,22 @@ impl ToneTracker {
         let mut out = Vec::new();
         self.dc.flush(&mut out);
         self.ingest(&out, true);
+        // An element whose 50 % instant falls at the very start or end of
+        // the recording was cut by it (an abrupt start or end reads as an
+        // edge right there).
+        let end_s = self.input_samples as f64 / self.dc.in_rate_hz();
+        if let Some(e) = self.elements.first_mut() {
+            if e.start_s < TRUNCATED_S {
+                e.truncated = true;
+                e.rise_s = None;
+            }
+        }
+        if let Some(e) = self.elements.last_mut() {
+            if e.end_s > end_s - TRUNCATED_S {
+                e.truncated = true;
+                e.fall_s = None;
+            }
+        }
     }
 
     fn ingest(&mut self, zs: &[Complex32], last: bool) {
@@ -623,6 +649,7 @@ impl ToneTracker {
             chirp_raw_hz: r.chirp.raw_hz,
             chirp_noise_hz: r.chirp.noise_hz,
             cut,
+            truncated: false,
             trace: if keep_trace {
                 r.trace
                     .t

@@ -64,6 +64,12 @@ pub fn collect(r: &Report, tr: &ToneTracker) -> Vec<String> {
         })
         .collect();
     let _ = droop;
+    let cut_by_file = tr.elements().iter().filter(|e| e.truncated).count();
+    if cut_by_file > 0 {
+        w.push(format!(
+            "The recording starts or ends during a key-down ({cut_by_file} element(s)): those elements' durations and cut edges are left out of the speed, weighting and edge figures. Start and stop recording with the key up."
+        ));
+    }
     let el: Vec<f64> = tr
         .elements()
         .iter()
@@ -114,7 +120,7 @@ pub fn collect(r: &Report, tr: &ToneTracker) -> Vec<String> {
             .iter()
             .filter(|e| e.rise_ms.is_none() || e.fall_ms.is_none())
             .count();
-        w.push(format!("{n} element(s) lack a rise or fall time (edge not found above the noise, or a key-down longer than 20 s)."));
+        w.push(format!("{n} element(s) lack a rise or fall time (edge not found above the noise, a key-down longer than 20 s, or cut by the start or end of the recording)."));
     }
     w
 }

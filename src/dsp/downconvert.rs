@@ -273,6 +273,10 @@ impl Downconverter {
         }
     }
 
+    /// Input sample rate, Hz.
+    pub fn in_rate_hz(&self) -> f64 {
+        self.fs
+    }
     /// Output (decimated) sample rate, Hz.
     pub fn out_rate_hz(&self) -> f64 {
         self.fs / self.d as f64
