@@ -1035,6 +1035,9 @@ fn recording_cut_during_a_key_down_keeps_speed_and_kinds() {
         let s = &r.summary;
         assert!((s.wpm.unwrap() - 20.0).abs() < 0.2, "{:?}", s.wpm);
         assert!((s.dah_dit_ratio.unwrap() - 3.0).abs() < 0.1);
-        assert!(r.warnings.iter().any(|w| w.contains("starts or ends during a key-down")));
+        assert!(r
+            .warnings
+            .iter()
+            .any(|w| w.contains("starts or ends during a key-down")));
     }
 }
