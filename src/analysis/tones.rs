@@ -7,7 +7,7 @@
 use rayon::prelude::*;
 
 use super::report::{InputInfo, Report, SidetoneFigures, ToneInfo};
-use super::tracker::ToneTracker;
+use super::tracker::{ToneTracker, TrackerConfig};
 use super::{build_report, muting, Options};
 use crate::dsp::downconvert::{Band, NOTCH_RAMP_HZ, NOTCH_ZERO_HZ};
 use crate::dsp::survey::{Candidate, SurveyResult};
@@ -120,7 +120,14 @@ impl ToneSet {
         let all: Vec<&Candidate> = std::iter::once(main).chain(others).collect();
         let mut trackers = vec![ToneTracker::with_band(fs, band_for(fs, main, &all, true))];
         for c in others.iter().filter(|c| c.keyed) {
-            trackers.push(ToneTracker::with_band(fs, band_for(fs, c, &all, false)));
+            trackers.push(ToneTracker::with_band_config(
+                fs,
+                band_for(fs, c, &all, false),
+                TrackerConfig {
+                    keep_traces: false,
+                    ..TrackerConfig::default()
+                },
+            ));
         }
         ToneSet {
             main: main.clone(),

@@ -45,6 +45,10 @@ pub struct TrackerConfig {
     pub lookahead_s: f64,
     /// Downconverter hop in input samples (None: the full block, fastest).
     pub hop: Option<usize>,
+    /// Keep each element's frequency trace and edge views (for the
+    /// mean-element chirp and the pictures). Off for tones other than the
+    /// main one, whose summaries need neither.
+    pub keep_traces: bool,
 }
 
 impl Default for TrackerConfig {
@@ -52,6 +56,7 @@ impl Default for TrackerConfig {
         TrackerConfig {
             lookahead_s: LOOKAHEAD_S,
             hop: None,
+            keep_traces: true,
         }
     }
 }
@@ -67,6 +72,7 @@ impl TrackerConfig {
         TrackerConfig {
             lookahead_s: LIVE_LOOKAHEAD_S,
             hop: Some(((fs as f64 * LIVE_HOP_S) as usize).max(16)),
+            keep_traces: true,
         }
     }
 }
@@ -286,6 +292,7 @@ pub struct ToneTracker {
     hum: HumAcc,
     /// Input samples pushed so far.
     input_samples: u64,
+    keep_traces: bool,
     /// Thinning level of the kept traces (`trace_kept`) and their points.
     trace_level: u32,
     trace_points: usize,
@@ -342,6 +349,7 @@ impl ToneTracker {
             },
             hum: HumAcc::new(fs_d),
             input_samples: 0,
+            keep_traces: cfg.keep_traces,
             out: Vec::new(),
             elements: Vec::new(),
             unmeasured: 0,
@@ -605,7 +613,7 @@ impl ToneTracker {
             }
         }
         let ts = |i: f64| t0 + i / self.fs_d;
-        let keep_view = self.elements.len() < EDGE_VIEW_MAX;
+        let keep_view = self.keep_traces && self.elements.len() < EDGE_VIEW_MAX;
         let high = ctx.levels.high.max(1e-12);
         let view = |t50: f64, ok: bool| -> Vec<f32> {
             if !keep_view || !ok {
@@ -628,7 +636,7 @@ impl ToneTracker {
         let rise_view = view(r.t50_rise, r.rise_samples.is_some());
         let fall_view = view(r.t50_fall, r.fall_samples.is_some());
         let settled = r.chirp.settled_hz;
-        let keep_trace = trace_kept(self.elements.len(), self.trace_level);
+        let keep_trace = self.keep_traces && trace_kept(self.elements.len(), self.trace_level);
         self.elements.push(TrackedElement {
             start_s: ts(r.t50_rise),
             end_s: ts(r.t50_fall),
