@@ -541,28 +541,7 @@ fn sox_made_recording_delay_and_recovery() {
         f("bg.wav").display().to_string(),
         f("keymix.wav").display().to_string(),
     ]);
-    sox(&[
-        s("-M"),
-        f("keymix.wav").display().to_string(),
-        rf.display().to_string(),
-        f("both.wav").display().to_string(),
-        s("delay"),
-        s(0),
-        s(0.0125),
-    ]);
-    let out = cwaudit()
-        .arg("timing")
-        .arg(f("both.wav"))
-        .arg("--json")
-        .output()
-        .unwrap();
-    assert_eq!(
-        out.status.code(),
-        Some(0),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    let v: Value = serde_json::from_slice(&out.stdout).unwrap();
+    let v = delay_rf_and_time(&f("keymix.wav"), &rf, &f("both.wav"));
     let g = |k: &str| v["timing"][k].as_f64().unwrap_or(f64::NAN);
     eprintln!(
         "sox recording: delay {:.3} ms, fall delay {:.3} ms, shortening {:.3} ms, recovery {:.2} ms",
@@ -610,28 +589,7 @@ fn sox_made_recording_delay_and_recovery() {
         parts.push(f(if k == 0 { "pause.wav" } else { "tail.wav" }));
     }
     concat(&parts, &f("line.wav"));
-    sox(&[
-        s("-M"),
-        f("line.wav").display().to_string(),
-        rf.display().to_string(),
-        f("both_line.wav").display().to_string(),
-        s("delay"),
-        s(0),
-        s(0.0125),
-    ]);
-    let out = cwaudit()
-        .arg("timing")
-        .arg(f("both_line.wav"))
-        .arg("--json")
-        .output()
-        .unwrap();
-    assert_eq!(
-        out.status.code(),
-        Some(0),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    let v: Value = serde_json::from_slice(&out.stdout).unwrap();
+    let v = delay_rf_and_time(&f("line.wav"), &rf, &f("both_line.wav"));
     let g = |k: &str| v["timing"][k].as_f64().unwrap_or(f64::NAN);
     eprintln!(
         "sox keyer line: delay {:.3} ms, fall delay {:.3} ms, shortening {:.3} ms",
@@ -644,4 +602,31 @@ fn sox_made_recording_delay_and_recovery() {
     assert!((g("delay_ms") - 14.5).abs() <= 1.0, "{v}");
     assert!((g("fall_delay_ms") - 10.5).abs() <= 1.0, "{v}");
     assert!(g("first_element_shortening_ms").abs() <= 1.0, "{v}");
+}
+
+/// Merges `key` (channel 1) and `rf` (channel 2) with sox, delaying channel 2
+/// by 12.5 ms with sox's `delay` effect, and runs `cwaudit timing --json` on it.
+fn delay_rf_and_time(key: &std::path::Path, rf: &std::path::Path, out: &std::path::Path) -> Value {
+    sox(&[
+        "-M".to_string(),
+        key.display().to_string(),
+        rf.display().to_string(),
+        out.display().to_string(),
+        "delay".to_string(),
+        "0".to_string(),
+        "0.0125".to_string(),
+    ]);
+    let r = cwaudit()
+        .arg("timing")
+        .arg(out)
+        .arg("--json")
+        .output()
+        .unwrap();
+    assert_eq!(
+        r.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&r.stderr)
+    );
+    serde_json::from_slice(&r.stdout).unwrap()
 }

@@ -1061,9 +1061,14 @@ impl Synth {
             }
         };
         let rf_noise = gauss(self.noise_sigma, &mut self.rng);
+        let y = x + rf_noise;
+        let rf = match self.filter.as_mut() {
+            Some(f) => f.process(y),
+            None => y,
+        };
         let st = self.txrx.as_mut().expect("called for timing recordings");
         let bg_noise = gauss(st.background_sigma, &mut self.rng);
-        if let Some((k, pole, px, py)) = st.line.as_mut() {
+        let key = if let Some((k, pole, px, py)) = st.line.as_mut() {
             let v = k.up_fs + (k.down_fs - k.up_fs) * st.sidetone.envelope(t);
             let out = match pole {
                 Some(a) => {
@@ -1073,26 +1078,13 @@ impl Synth {
                 }
                 None => v,
             };
-            let y = x + rf_noise;
-            let rf = match self.filter.as_mut() {
-                Some(f) => f.process(y),
-                None => y,
-            };
-            let kc = st.key_channel;
-            for (c, o) in frame.iter_mut().enumerate() {
-                *o = if c == kc { out + bg_noise } else { rf };
+            out + bg_noise
+        } else {
+            let mut bg = bg_noise;
+            if let Some(rx) = st.rx_tone.as_mut() {
+                bg += rx.sample(n, self.fs);
             }
-            return;
-        }
-        let mut bg = bg_noise;
-        if let Some(rx) = st.rx_tone.as_mut() {
-            bg += rx.sample(n, self.fs);
-        }
-        let key = st.sidetone.sample(n, self.fs) + st.muting.gain(t) * bg;
-        let y = x + rf_noise;
-        let rf = match self.filter.as_mut() {
-            Some(f) => f.process(y),
-            None => y,
+            st.sidetone.sample(n, self.fs) + st.muting.gain(t) * bg
         };
         let kc = st.key_channel;
         for (c, v) in frame.iter_mut().enumerate() {
