@@ -225,14 +225,18 @@ impl Survey {
                 self.fft
                     .process_with_scratch(&mut self.buf, &mut self.spec, &mut self.scratch)
                     .expect("buffer sizes come from the plan");
-                for ((s, sp), sp2) in self.spec.iter().zip(&mut ch.sum_p).zip(&mut ch.sum_p2) {
-                    let p = s.norm_sqr() as f64;
-                    *sp += p;
-                    *sp2 += p * p;
-                }
                 if let Some(per_col) = self.gram_per_col {
-                    for (a, s) in ch.gram_acc.iter_mut().zip(&self.spec) {
-                        *a += s.norm_sqr() as f64;
+                    for (((s, sp), sp2), a) in self
+                        .spec
+                        .iter()
+                        .zip(&mut ch.sum_p)
+                        .zip(&mut ch.sum_p2)
+                        .zip(&mut ch.gram_acc)
+                    {
+                        let p = s.norm_sqr() as f64;
+                        *sp += p;
+                        *sp2 += p * p;
+                        *a += p;
                     }
                     ch.gram_n += 1;
                     if ch.gram_n == per_col {
@@ -242,6 +246,12 @@ impl Survey {
                             .extend(ch.gram_acc.iter().map(|v| (*v / n) as f32));
                         ch.gram_acc.iter_mut().for_each(|v| *v = 0.0);
                         ch.gram_n = 0;
+                    }
+                } else {
+                    for ((s, sp), sp2) in self.spec.iter().zip(&mut ch.sum_p).zip(&mut ch.sum_p2) {
+                        let p = s.norm_sqr() as f64;
+                        *sp += p;
+                        *sp2 += p * p;
                     }
                 }
                 ch.frames += 1;
