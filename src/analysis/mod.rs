@@ -97,6 +97,10 @@ pub fn analyze_file(path: &Path, opt: &Options) -> Result<Report> {
     let info = src.info().clone();
     let nch = info.channels as usize;
     let mut survey = Survey::new(info.sample_rate_hz, nch);
+    if let Some(n) = info.frames {
+        // The spectral pass's spectrogram uses the survey's frames.
+        survey.keep_spectrogram(n);
+    }
     let mut buf = Vec::new();
     while src.read_frames(&mut buf, BLOCK_FRAMES)? > 0 {
         survey.push(&buf);
@@ -142,7 +146,7 @@ pub fn analyze_file(path: &Path, opt: &Options) -> Result<Report> {
     set.finish();
     let (mut rep, side) = set.reports(input, info.sample_rate_hz);
     if rep.summary.keyed_signal_found {
-        add_spectral(&mut rep, path, channel, opt)?;
+        add_spectral(&mut rep, path, channel, opt, s.spectrograms.get(channel))?;
     }
     if let Some(st) = opt.sidetone_hz {
         tones::sidetone(&mut rep, &side, st, opt, path, channel)?;
@@ -249,7 +253,13 @@ pub fn mean_edges_ms(tr: &ToneTracker) -> (Option<f64>, Option<f64>) {
 }
 
 /// Third pass: spectra, bandwidths, clicks and the picture data.
-fn add_spectral(rep: &mut Report, path: &Path, channel: usize, opt: &Options) -> Result<()> {
+fn add_spectral(
+    rep: &mut Report,
+    path: &Path,
+    channel: usize,
+    opt: &Options,
+    gram: Option<&crate::dsp::survey::SurveyGram>,
+) -> Result<()> {
     let s = &rep.summary;
     let (Some(tone), Some(level)) = (s.tone_hz, s.level_dbfs) else {
         return Ok(());
@@ -273,6 +283,7 @@ fn add_spectral(rep: &mut Report, path: &Path, channel: usize, opt: &Options) ->
             .filter(|t| !t.main)
             .map(|t| t.frequency_hz)
             .collect::<Vec<f64>>(),
+        gram,
     };
     let out = spectral::spectral_pass(&inp)?;
     rep.views.spectrum = out.spectrum;

@@ -20,6 +20,7 @@ use rustfft::num_complex::Complex32;
 use serde::{Deserialize, Serialize};
 
 use super::views::{SpectrogramView, SpectrumView};
+use crate::dsp::survey::{frames_per_column, SurveyGram};
 use crate::dsp::window::{enbw_bins, hann};
 use crate::error::Result;
 use crate::input::wav::WavSource;
@@ -86,6 +87,9 @@ pub struct SpectralInput<'a> {
     /// Other tones in the recording, Hz: their bins are left out of the
     /// figures (taken as noise), so they do not widen this tone's bandwidths.
     pub others_hz: &'a [f64],
+    /// The survey's spectrogram of this channel, when it kept one: used
+    /// instead of transforming the same frames again if its frames match.
+    pub gram: Option<&'a SurveyGram>,
 }
 
 /// Welch accumulator for one frame length.
@@ -212,8 +216,12 @@ pub fn spectral_pass(inp: &SpectralInput) -> Result<SpectralOutput> {
     let g_lo = (((inp.tone_hz - REGION_HALF_HZ).max(0.0)) / bin_gram) as usize;
     let g_hi = (((inp.tone_hz + REGION_HALF_HZ).min(fsf / 2.0)) / bin_gram) as usize;
     let g_rows = g_hi.saturating_sub(g_lo) + 1;
-    let gram_frames = (total_frames as usize / (n_gram / 2)).max(1);
-    let per_col = gram_frames.div_ceil(1000).max(1);
+    let per_col = frames_per_column(total_frames, n_gram);
+    // The survey's columns are the same frames, window and transform: take
+    // them (this channel's region) when they match.
+    let pre = inp
+        .gram
+        .filter(|g| g.nfft == n_gram && g.frames_per_column == per_col);
     let mut gram: Vec<f32> = Vec::new();
     let mut col_acc = vec![0.0f64; g_rows];
     let mut col_n = 0usize;
@@ -298,7 +306,7 @@ pub fn spectral_pass(inp: &SpectralInput) -> Result<SpectralOutput> {
             }
             next_noise += n_noise as u64 / 2;
         }
-        while next_gram + n_gram as u64 <= end {
+        while pre.is_none() && next_gram + n_gram as u64 <= end {
             w_gram.power(&hist[at(&hist, next_gram, n_gram)], &mut gp);
             for (c, p) in col_acc.iter_mut().zip(&gp[g_lo..=g_hi.min(gp.len() - 1)]) {
                 *c += p;
@@ -332,7 +340,7 @@ pub fn spectral_pass(inp: &SpectralInput) -> Result<SpectralOutput> {
         let need = [
             next_main.min(t_last_i),
             next_noise,
-            next_gram,
+            if pre.is_none() { next_gram } else { u64::MAX },
             edge_events
                 .get(next_edge)
                 .map_or(u64::MAX, |e| e.0.saturating_sub(n_edge as u64)),
@@ -552,6 +560,17 @@ pub fn spectral_pass(inp: &SpectralInput) -> Result<SpectralOutput> {
     } else {
         SpectrumView::default()
     };
+    if let Some(g) = pre {
+        let nb = n_gram / 2 + 1;
+        for col in g.columns.chunks_exact(nb) {
+            gram.extend_from_slice(&col[g_lo..=g_hi.min(nb - 1)]);
+            gram.extend(std::iter::repeat_n(
+                0.0,
+                g_rows - (g_hi.min(nb - 1) + 1 - g_lo),
+            ));
+        }
+        gram_cols = g.columns.len() / nb;
+    }
     let wsum_g: f64 = w_gram.win.iter().map(|&w| w as f64).sum();
     let gref = (wsum_g / 2.0).powi(2) * cp;
     let gram_view = SpectrogramView {
@@ -634,6 +653,66 @@ mod tests {
         // PARIS timing gives B = 1/unit = 25/1.2 = 20.83 baud at 25 WPM;
         // the example rounds B to 20.
         assert!((necessary_bandwidth_hz(25.0 / 1.2, 3.0) - 62.5).abs() < 1e-9);
+    }
+
+    #[test]
+    fn survey_spectrogram_equals_the_pass_own() {
+        // Slow obvious reference: the pass transforming its own spectrogram
+        // frames. The survey's columns (same frames, window and transform)
+        // must give the identical view, here with 3 frames per column and a
+        // part-column left over (22 s at 48 kHz: 2062 frames).
+        use crate::dsp::survey::Survey;
+        let fs = 48_000u32;
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("keyed.wav");
+        let spec = hound::WavSpec {
+            channels: 1,
+            sample_rate: fs,
+            bits_per_sample: 16,
+            sample_format: hound::SampleFormat::Int,
+        };
+        let mut w = hound::WavWriter::create(&path, spec).unwrap();
+        let n = 22 * fs as usize;
+        let mut seed = 12345u32;
+        for i in 0..n {
+            let t = i as f64 / fs as f64;
+            let on = if (t * 5.0).fract() < 0.5 { 0.25 } else { 0.0 };
+            seed = seed.wrapping_mul(1_664_525).wrapping_add(1_013_904_223);
+            let noise = (seed >> 8) as f64 / (1u32 << 24) as f64 - 0.5;
+            let x = on * (2.0 * std::f64::consts::PI * 700.0 * t).sin() + 0.01 * noise;
+            w.write_sample((x * 32767.0) as i16).unwrap();
+        }
+        w.finalize().unwrap();
+        let mut sv = Survey::new(fs, 1);
+        sv.keep_spectrogram(n as u64);
+        let mut src = WavSource::open(&path).unwrap();
+        let mut buf = Vec::new();
+        while src.read_frames(&mut buf, 8192).unwrap() > 0 {
+            sv.push(&buf);
+        }
+        let s = sv.finish();
+        let g = &s.spectrograms[0];
+        assert_eq!((g.nfft, g.frames_per_column), (1024, 3));
+        let els: Vec<(f64, f64)> = (0..110)
+            .map(|k| (k as f64 * 0.2, k as f64 * 0.2 + 0.1))
+            .collect();
+        let mut inp = SpectralInput {
+            path: &path,
+            channel: 0,
+            tone_hz: 700.0,
+            carrier_power: 0.0625,
+            elements: &els,
+            unit_s: Some(0.1),
+            k: DEFAULT_K,
+            others_hz: &[],
+            gram: None,
+        };
+        let own = spectral_pass(&inp).unwrap();
+        inp.gram = Some(g);
+        let shared = spectral_pass(&inp).unwrap();
+        assert_eq!(own.spectrogram.cols, 687);
+        assert_eq!(own.spectrogram, shared.spectrogram);
+        assert_eq!(own.figures, shared.figures);
     }
 
     #[test]

@@ -57,6 +57,32 @@ pub struct SurveyResult {
     pub channels: Vec<ChannelStats>,
     /// Mean power spectrum of each channel (Hann, one-sided, per bin).
     pub spectra: Vec<Vec<f64>>,
+    /// Spectrogram of each channel from the survey's own frames, when asked
+    /// for with [`Survey::keep_spectrogram`] (else empty).
+    pub spectrograms: Vec<SurveyGram>,
+}
+
+/// Most columns a spectrogram keeps, however long the recording.
+pub const SPECTROGRAM_COLUMNS_MAX: usize = 1000;
+
+/// Frames averaged into one spectrogram column for a recording of
+/// `total_frames` samples and frames of `nfft` with 50 % overlap, so that
+/// there are at most [`SPECTROGRAM_COLUMNS_MAX`] columns.
+pub fn frames_per_column(total_frames: u64, nfft: usize) -> usize {
+    let frames = (total_frames as usize / (nfft / 2)).max(1);
+    frames.div_ceil(SPECTROGRAM_COLUMNS_MAX).max(1)
+}
+
+/// Spectrogram columns: the mean of `frames_per_column` successive frame
+/// power spectra |X[k]|^2 (Hann, 50 % overlap, frames from sample 0), all
+/// `nfft / 2 + 1` bins, column after column. A trailing part-column is left
+/// out. Kept by the survey so that the spectral pass need not transform the
+/// same frames again.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct SurveyGram {
+    pub nfft: usize,
+    pub frames_per_column: usize,
+    pub columns: Vec<f32>,
 }
 
 /// A tone candidate's on-power stands this far above the median bin, dB.
@@ -73,6 +99,9 @@ struct Chan {
     sum_p2: Vec<f64>,
     frames: u64,
     stats: ChannelStats,
+    gram: SurveyGram,
+    gram_acc: Vec<f64>,
+    gram_n: usize,
 }
 
 /// Adds peak, clipped count and sum of squares of `x` to `st`. Eight
@@ -115,6 +144,8 @@ pub struct Survey {
     spec: Vec<Complex32>,
     scratch: Vec<Complex32>,
     chans: Vec<Chan>,
+    /// Frames per spectrogram column, when the spectrogram is kept.
+    gram_per_col: Option<usize>,
 }
 
 /// Survey frame length: about 21 ms at 48 kHz, short enough to see keying.
@@ -145,8 +176,30 @@ impl Survey {
                     sum_p2: vec![0.0; nb],
                     frames: 0,
                     stats: ChannelStats::default(),
+                    gram: SurveyGram::default(),
+                    gram_acc: Vec::new(),
+                    gram_n: 0,
                 })
                 .collect(),
+            gram_per_col: None,
+        }
+    }
+
+    /// Also keeps each channel's spectrogram (see [`SurveyGram`]), for a
+    /// recording of `total_frames` samples: at most
+    /// [`SPECTROGRAM_COLUMNS_MAX`] columns, so memory does not grow with
+    /// length.
+    pub fn keep_spectrogram(&mut self, total_frames: u64) {
+        let per_col = frames_per_column(total_frames, self.nfft);
+        self.gram_per_col = Some(per_col);
+        for ch in &mut self.chans {
+            ch.gram = SurveyGram {
+                nfft: self.nfft,
+                frames_per_column: per_col,
+                columns: Vec::new(),
+            };
+            ch.gram_acc = vec![0.0; self.nfft / 2 + 1];
+            ch.gram_n = 0;
         }
     }
 
@@ -172,10 +225,34 @@ impl Survey {
                 self.fft
                     .process_with_scratch(&mut self.buf, &mut self.spec, &mut self.scratch)
                     .expect("buffer sizes come from the plan");
-                for ((s, sp), sp2) in self.spec.iter().zip(&mut ch.sum_p).zip(&mut ch.sum_p2) {
-                    let p = s.norm_sqr() as f64;
-                    *sp += p;
-                    *sp2 += p * p;
+                if let Some(per_col) = self.gram_per_col {
+                    for (((s, sp), sp2), a) in self
+                        .spec
+                        .iter()
+                        .zip(&mut ch.sum_p)
+                        .zip(&mut ch.sum_p2)
+                        .zip(&mut ch.gram_acc)
+                    {
+                        let p = s.norm_sqr() as f64;
+                        *sp += p;
+                        *sp2 += p * p;
+                        *a += p;
+                    }
+                    ch.gram_n += 1;
+                    if ch.gram_n == per_col {
+                        let n = ch.gram_n as f64;
+                        ch.gram
+                            .columns
+                            .extend(ch.gram_acc.iter().map(|v| (*v / n) as f32));
+                        ch.gram_acc.iter_mut().for_each(|v| *v = 0.0);
+                        ch.gram_n = 0;
+                    }
+                } else {
+                    for ((s, sp), sp2) in self.spec.iter().zip(&mut ch.sum_p).zip(&mut ch.sum_p2) {
+                        let p = s.norm_sqr() as f64;
+                        *sp += p;
+                        *sp2 += p * p;
+                    }
                 }
                 ch.frames += 1;
                 start += self.hop;
@@ -195,8 +272,12 @@ impl Survey {
         let mut candidates = Vec::new();
         let mut spectra = Vec::new();
         let mut channels = Vec::new();
-        for (c, ch) in self.chans.into_iter().enumerate() {
+        let mut spectrograms = Vec::new();
+        for (c, mut ch) in self.chans.into_iter().enumerate() {
             channels.push(ch.stats.clone());
+            if self.gram_per_col.is_some() {
+                spectrograms.push(std::mem::take(&mut ch.gram));
+            }
             if ch.frames == 0 {
                 spectra.push(vec![0.0; nfft / 2 + 1]);
                 continue;
@@ -288,6 +369,7 @@ impl Survey {
             candidates,
             channels,
             spectra,
+            spectrograms,
         }
     }
 }

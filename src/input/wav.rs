@@ -287,28 +287,43 @@ impl FrameSource for WavSource {
             }
         }
         let raw = &self.bytes[..got - got % self.enc.bytes];
+        // Each arm fills a slice in place (a loop the compiler vectorizes)
+        // rather than pushing sample by sample.
+        let m = raw.len() / self.enc.bytes;
+        out.resize(m, 0.0);
         match (self.enc.float, self.enc.bytes) {
-            (false, 1) => out.extend(raw.iter().map(|&b| (b as f32 - 128.0) / 128.0)),
-            (false, 2) => out.extend(
-                raw.chunks_exact(2)
-                    .map(|c| i16::from_le_bytes([c[0], c[1]]) as f32 / 32_768.0),
-            ),
-            (false, 3) => out
-                .extend(raw.chunks_exact(3).map(|c| {
-                    (i32::from_le_bytes([0, c[0], c[1], c[2]]) >> 8) as f32 / 8_388_608.0
-                })),
+            (false, 1) => {
+                for (o, &b) in out.iter_mut().zip(raw) {
+                    *o = (b as f32 - 128.0) / 128.0;
+                }
+            }
+            (false, 2) => {
+                for (o, c) in out.iter_mut().zip(raw.chunks_exact(2)) {
+                    *o = i16::from_le_bytes([c[0], c[1]]) as f32 / 32_768.0;
+                }
+            }
+            (false, 3) => {
+                for (o, c) in out.iter_mut().zip(raw.chunks_exact(3)) {
+                    *o = (i32::from_le_bytes([0, c[0], c[1], c[2]]) >> 8) as f32 / 8_388_608.0;
+                }
+            }
             // 32-bit containers hold 32-bit samples or left-justified 24-bit ones.
-            (false, _) => out
-                .extend(raw.chunks_exact(4).map(|c| {
-                    i32::from_le_bytes([c[0], c[1], c[2], c[3]]) as f32 / 2_147_483_648.0
-                })),
-            (true, 4) => out.extend(
-                raw.chunks_exact(4)
-                    .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]])),
-            ),
-            (true, _) => out.extend(raw.chunks_exact(8).map(|c| {
-                f64::from_le_bytes([c[0], c[1], c[2], c[3], c[4], c[5], c[6], c[7]]) as f32
-            })),
+            (false, _) => {
+                for (o, c) in out.iter_mut().zip(raw.chunks_exact(4)) {
+                    *o = i32::from_le_bytes([c[0], c[1], c[2], c[3]]) as f32 / 2_147_483_648.0;
+                }
+            }
+            (true, 4) => {
+                for (o, c) in out.iter_mut().zip(raw.chunks_exact(4)) {
+                    *o = f32::from_le_bytes([c[0], c[1], c[2], c[3]]);
+                }
+            }
+            (true, _) => {
+                for (o, c) in out.iter_mut().zip(raw.chunks_exact(8)) {
+                    *o =
+                        f64::from_le_bytes([c[0], c[1], c[2], c[3], c[4], c[5], c[6], c[7]]) as f32;
+                }
+            }
         }
         if out.len() < n {
             // Keep whole frames only; report the truncation.
@@ -318,7 +333,13 @@ impl FrameSource for WavSource {
             self.frames_left = 0;
             return Err(self.truncated(promised));
         }
-        if let Some(pos) = out.iter().position(|v| !v.is_finite()) {
+        // Integer samples are always finite; only float data can hold NaN/inf.
+        if let Some(pos) = self
+            .enc
+            .float
+            .then(|| out.iter().position(|v| !v.is_finite()))
+            .flatten()
+        {
             return Err(self.non_finite(self.frames_read + (pos / ch) as u64));
         }
         self.frames_read += want as u64;
