@@ -399,6 +399,29 @@ struct Tone {
 }
 
 impl Tone {
+    /// A tone with raised-cosine edges of `edge_s` and nothing else: no
+    /// drift, chirp, backwave or hum (other stations, sidetones).
+    fn plain(amp: f64, pitch: f64, edge_s: f64, elems: Vec<Elem>, keyed: bool) -> Tone {
+        Tone {
+            amp,
+            pitch,
+            drift_hz_per_s: 0.0,
+            warmup: None,
+            rise_shape: EdgeShape::RaisedCosine,
+            rise_s: edge_s,
+            fall_shape: EdgeShape::RaisedCosine,
+            fall_s: edge_s,
+            chirp: ChirpLaw::None,
+            keyed,
+            backwave: 0.0,
+            hum: None,
+            elems,
+            first: 0,
+            last_on: None,
+            phase: 0.0,
+        }
+    }
+
     fn envelope(&mut self, t: f64) -> f64 {
         if !self.keyed {
             return 1.0;
@@ -770,23 +793,8 @@ impl Synth {
                 "the sidetone and the received tone together would exceed full scale; lower them.",
             )?;
             end = end.max(end_of(&p.key, (EdgeShape::RaisedCosine, p.sidetone_edge_s)));
-            let keyed = |amp: f64, pitch: f64, elems: Vec<Elem>, keyed: bool| Tone {
-                amp,
-                pitch,
-                drift_hz_per_s: 0.0,
-                warmup: None,
-                rise_shape: EdgeShape::RaisedCosine,
-                rise_s: p.sidetone_edge_s,
-                fall_shape: EdgeShape::RaisedCosine,
-                fall_s: p.sidetone_edge_s,
-                chirp: ChirpLaw::None,
-                keyed,
-                backwave: 0.0,
-                hum: None,
-                elems,
-                first: 0,
-                last_on: None,
-                phase: 0.0,
+            let keyed = |amp: f64, pitch: f64, elems: Vec<Elem>, keyed: bool| {
+                Tone::plain(amp, pitch, p.sidetone_edge_s, elems, keyed)
             };
             txrx_state = Some(TxRxState {
                 key_channel: t.key_channel as usize - 1,
@@ -1166,24 +1174,7 @@ fn other_tone(
     } else {
         Vec::new()
     };
-    let tone = Tone {
-        amp: amp2,
-        pitch: st.pitch_hz,
-        drift_hz_per_s: 0.0,
-        warmup: None,
-        rise_shape: edge.0,
-        rise_s: edge.1,
-        fall_shape: edge.0,
-        fall_s: edge.1,
-        chirp: ChirpLaw::None,
-        keyed: st.keyed,
-        backwave: 0.0,
-        hum: None,
-        elems,
-        first: 0,
-        last_on: None,
-        phase: 0.0,
-    };
+    let tone = Tone::plain(amp2, st.pitch_hz, edge.1, elems, st.keyed);
     Ok((tone, truth, end))
 }
 
