@@ -17,6 +17,7 @@ use realfft::{RealFftPlanner, RealToComplex};
 use rustfft::num_complex::{Complex, Complex32, Complex64};
 use rustfft::{Fft, FftPlanner};
 
+use super::decimate::{factor_for, Decimator};
 use super::window::blackman;
 
 /// Flat half-width of the envelope band on each side of the pitch, Hz.
@@ -150,9 +151,22 @@ fn plan_sizes_for(fs: u32, block_s: f64) -> (usize, usize, usize) {
     (n, d, m)
 }
 
+/// Room left above the band for the design window's smearing of its
+/// roll-off, Hz, when choosing the front-end decimation.
+const FRONT_MARGIN_HZ: f64 = 400.0;
+
 /// Streaming analytic downconverter for one tone.
+///
+/// The real input is first decimated (`dsp::decimate`) as far as the band
+/// allows without changing the output rate; the block transforms then run at
+/// that lower rate, with the same block and filter durations, so the band
+/// and the baseband are those of a transform at the input rate.
 pub struct Downconverter {
+    /// Rate of the transforms (input rate over the front-end factor), Hz.
     fs: f64,
+    in_fs: f64,
+    front: Decimator,
+    front_out: Vec<f32>,
     n: usize,
     d: usize,
     nd: usize,
@@ -168,6 +182,9 @@ pub struct Downconverter {
     spec: Vec<Complex32>,
     fscratch: Vec<Complex32>,
     narrow: Vec<Complex32>,
+    /// (narrow index, spectrum bin) of every bin the band passes (|H| above
+    /// -140 dB of its peak); the rest of `narrow` stays zero.
+    live: Vec<(u32, u32)>,
     iscratch: Vec<Complex32>,
     fill: usize,
     block: u64,
@@ -185,7 +202,11 @@ impl Downconverter {
     /// the default N - M + 1, rounded down to a multiple of the decimation).
     /// The output is the same filter's, sample for sample; a shorter hop only
     /// costs more FFTs and gives each output sooner (live input).
-    pub fn with_hop(fs: u32, band: Band, hop: Option<usize>) -> Downconverter {
+    pub fn with_hop(fs_in: u32, band: Band, hop: Option<usize>) -> Downconverter {
+        let (_, d_total, _) = plan_sizes(fs_in);
+        let top = band.hi_hz + band.hi_rolloff_hz + FRONT_MARGIN_HZ;
+        let front_factor = factor_for(fs_in as f64, top, d_total);
+        let fs = fs_in / front_factor as u32;
         let (n, d, m) = if band.notch_count > 0 {
             plan_sizes_for(fs, NOTCHED_BLOCK_S)
         } else {
@@ -194,7 +215,7 @@ impl Downconverter {
         let fsf = fs as f64;
         let nd = n / d;
         let full = n - (m - 1);
-        let hop = hop.map_or(full, |h| (h.min(full) / d).max(1) * d);
+        let hop = hop.map_or(full, |h| ((h / front_factor).min(full) / d).max(1) * d);
         let bin = fsf / n as f64;
         let k0 = (band.center_hz / bin)
             .round()
@@ -245,10 +266,26 @@ impl Downconverter {
             nb += v.norm_sqr();
             *hj = Complex32::new(v.re as f32, v.im as f32);
         }
+        let peak = h.iter().map(|v| v.norm()).fold(0.0f32, f32::max);
+        let live: Vec<(u32, u32)> = (0..nd)
+            .filter_map(|j| {
+                let b = if j < nd / 2 {
+                    j as i64
+                } else {
+                    j as i64 - nd as i64
+                };
+                let k = k0 as i64 + b;
+                (k > 0 && k < (n / 2) as i64 && h[j].norm() > 1e-7 * peak)
+                    .then_some((j as u32, k as u32))
+            })
+            .collect();
         let fwd = RealFftPlanner::<f32>::new().plan_fft_forward(n);
         let inv = FftPlanner::<f32>::new().plan_fft_inverse(nd);
         Downconverter {
             fs: fsf,
+            in_fs: fs_in as f64,
+            front: Decimator::new(front_factor),
+            front_out: Vec::new(),
             n,
             d,
             nd,
@@ -262,6 +299,7 @@ impl Downconverter {
             spec: fwd.make_output_vec(),
             fscratch: fwd.make_scratch_vec(),
             narrow: vec![Complex32::new(0.0, 0.0); nd],
+            live,
             iscratch: vec![Complex32::new(0.0, 0.0); inv.get_inplace_scratch_len()],
             fwd,
             inv,
@@ -275,7 +313,7 @@ impl Downconverter {
 
     /// Input sample rate, Hz.
     pub fn in_rate_hz(&self) -> f64 {
-        self.fs
+        self.in_fs
     }
     /// Output (decimated) sample rate, Hz.
     pub fn out_rate_hz(&self) -> f64 {
@@ -283,7 +321,7 @@ impl Downconverter {
     }
     /// Decimation factor.
     pub fn decimation(&self) -> usize {
-        self.d
+        self.front.factor() * self.d
     }
     /// Noise-equivalent bandwidth of the band (sum of |H|^2 times bin width), Hz.
     pub fn noise_bandwidth_hz(&self) -> f64 {
@@ -303,7 +341,7 @@ impl Downconverter {
     /// Input samples to push after the end so that every input sample has
     /// reached the output.
     pub fn flush_len(&self) -> usize {
-        self.hop + self.m
+        self.front.factor() * (self.hop + self.m) + self.front.flush_len()
     }
 
     /// 10-90 % time of the band's step response for keying, s. An on-off
@@ -349,7 +387,16 @@ impl Downconverter {
 
     /// Filters one channel's samples; appends decimated baseband to `out`.
     /// The baseband is scaled so a sine of amplitude A gives |z| = A.
-    pub fn push(&mut self, samples: &[f32], out: &mut Vec<Complex32>) {
+    pub fn push(&mut self, input: &[f32], out: &mut Vec<Complex32>) {
+        let mut front_out = std::mem::take(&mut self.front_out);
+        front_out.clear();
+        self.front.push(input, &mut front_out);
+        self.push_front(&front_out, out);
+        self.front_out = front_out;
+    }
+
+    /// Blocks of the front end's output through the transforms.
+    fn push_front(&mut self, samples: &[f32], out: &mut Vec<Complex32>) {
         let hist = self.n - self.hop;
         let mut i = 0;
         while i < samples.len() {
@@ -377,20 +424,9 @@ impl Downconverter {
         self.fwd
             .process_with_scratch(&mut self.work, &mut self.spec, &mut self.fscratch)
             .expect("buffer sizes come from the plan");
-        let nd = self.nd;
-        let half = self.n / 2;
-        for (j, v) in self.narrow.iter_mut().enumerate() {
-            let b = if j < nd / 2 {
-                j as i64
-            } else {
-                j as i64 - nd as i64
-            };
-            let k = self.k0 as i64 + b;
-            *v = if k > 0 && k < half as i64 {
-                self.spec[k as usize] * self.h[j]
-            } else {
-                Complex32::new(0.0, 0.0)
-            };
+        self.narrow.fill(Complex32::new(0.0, 0.0));
+        for &(j, k) in &self.live {
+            self.narrow[j as usize] = self.spec[k as usize] * self.h[j as usize];
         }
         self.inv
             .process_with_scratch(&mut self.narrow, &mut self.iscratch);
@@ -414,16 +450,13 @@ impl Downconverter {
         };
         let turn =
             Complex64::from_polar(1.0, -2.0 * PI * self.residual_hz * self.d as f64 / self.fs);
-        let mut c = Complex64::new(0.0, 0.0);
-        for mi in first..first + count {
-            c = if (mi - first).is_multiple_of(64) {
-                Complex64::from_polar(scale, phase(mi))
-            } else {
-                c * turn
-            };
-            let v = self.narrow[mi];
-            let z = Complex64::new(v.re as f64, v.im as f64) * c;
-            out.push(Complex32::new(z.re as f32, z.im as f32));
+        for (ci, chunk) in self.narrow[first..first + count].chunks(64).enumerate() {
+            let mut c = Complex64::from_polar(scale, phase(first + 64 * ci));
+            out.extend(chunk.iter().map(|v| {
+                let z = Complex64::new(v.re as f64, v.im as f64) * c;
+                c *= turn;
+                Complex32::new(z.re as f32, z.im as f32)
+            }));
         }
         self.emitted += count as u64;
         self.block += 1;
