@@ -20,6 +20,8 @@ use rustfft::num_complex::Complex32;
 use serde::{Deserialize, Serialize};
 
 use super::views::{SpectrogramView, SpectrumView};
+use crate::dsp::decimate::{factor_for, Decimator, PASS_FRACTION};
+use crate::dsp::downconvert::plan_sizes;
 use crate::dsp::survey::{frames_per_column, SurveyGram};
 use crate::dsp::window::{enbw_bins, hann};
 use crate::error::Result;
@@ -171,10 +173,11 @@ pub fn necessary_bandwidth_hz(baud: f64, k: f64) -> f64 {
 }
 
 /// Frame length for the main spectrum: about 0.17 s (RBW ~ 9 Hz at any
-/// rate), shorter when the keyed passage would give fewer than 8 frames.
-fn main_len(fs: u32, passage_s: f64) -> usize {
+/// rate), shorter (down to `shortest`) when the keyed passage would give
+/// fewer than 8 frames.
+fn main_len(fs: u32, passage_s: f64, shortest: usize) -> usize {
     let mut n = ((fs as f64 * 0.17) as usize).next_power_of_two();
-    while n > 1024 && (passage_s * fs as f64) / (n as f64 / 2.0) < 8.0 {
+    while n > shortest && (passage_s * fs as f64) / (n as f64 / 2.0) < 8.0 {
         n /= 2;
     }
     n
@@ -190,23 +193,35 @@ pub struct SpectralOutput {
     pub envelope: Vec<(f32, f32)>,
 }
 
-/// Runs the spectral pass.
+/// Front-end decimation for the pass: as far as the downconverter goes,
+/// provided the region around the pitch stays in the flat band.
+pub fn spectral_factor(fs: u32, tone_hz: f64) -> usize {
+    factor_for(fs as f64, tone_hz + REGION_HALF_HZ, plan_sizes(fs).1)
+}
+
+/// Runs the spectral pass. The spectra are taken from the input decimated
+/// by [`spectral_factor`] (frames of the same durations, so the same
+/// resolution); the envelope picture from the samples as they are.
 pub fn spectral_pass(inp: &SpectralInput) -> Result<SpectralOutput> {
     let mut src = WavSource::open(inp.path)?;
     let info = src.info().clone();
-    let fs = info.sample_rate_hz;
+    let fs_in = info.sample_rate_hz;
+    let factor = spectral_factor(fs_in, inp.tone_hz);
+    let mut front = Decimator::new(factor);
+    let fs = fs_in / factor as u32;
     let fsf = fs as f64;
     let nch = info.channels as usize;
-    let total_frames = info.frames.unwrap_or(0);
-    let duration = total_frames as f64 / fsf;
+    let total_in = info.frames.unwrap_or(0);
+    let total_frames = total_in / factor as u64;
+    let duration = total_in as f64 / fs_in as f64;
     let (t_first, t_last) = match (inp.elements.first(), inp.elements.last()) {
         (Some(a), Some(b)) => ((a.0 - 0.1).max(0.0), b.1 + 0.1),
         _ => (0.0, duration),
     };
-    let n_main = main_len(fs, t_last - t_first);
-    let n_noise = (n_main / 4).max(256);
+    let n_main = main_len(fs, t_last - t_first, 1024 / factor);
+    let n_noise = (n_main / 4).max(256 / factor);
     let n_edge = ((fsf * 0.04) as usize).next_power_of_two();
-    let n_gram = ((fsf * 0.021) as usize).next_power_of_two();
+    let n_gram = crate::dsp::survey::survey_nfft(fs);
     let mut w_main = Welch::new(n_main);
     let mut w_noise = Welch::new(n_noise);
     let mut w_rise = Welch::new(n_edge);
@@ -227,7 +242,8 @@ pub fn spectral_pass(inp: &SpectralInput) -> Result<SpectralOutput> {
     let mut col_n = 0usize;
     let mut gram_cols = 0usize;
     let env_buckets = 4000usize;
-    let bucket = (total_frames as usize / env_buckets).max(1);
+    let bucket = (total_in as usize / env_buckets).max(1);
+    let mut env_at: u64 = 0; // input samples seen
     let mut envelope: Vec<(f32, f32)> = Vec::new();
     let mut env_max = 0f32;
     let mut env_count = 0usize;
@@ -259,33 +275,46 @@ pub fn spectral_pass(inp: &SpectralInput) -> Result<SpectralOutput> {
             .any(|e| ((e.1 * fsf) as u64 + guard) > a)
     };
     let mut buf = Vec::new();
+    let mut own = Vec::new();
     let mut gp = vec![0.0; n_gram / 2 + 1];
-    loop {
+    let mut ended = false;
+    while !ended {
         let got = src.read_frames(&mut buf, 8192)?;
-        if got == 0 {
-            break;
-        }
-        let old_len = hist.len();
-        if nch == 1 {
-            hist.extend_from_slice(&buf);
+        let raw: &[f32] = if got == 0 {
+            ended = true;
+            // Zeros after the end bring the last samples through the filter.
+            own.clear();
+            own.resize(front.flush_len(), 0.0);
+            &own
+        } else if nch == 1 {
+            &buf
         } else {
-            hist.extend(buf.iter().skip(inp.channel).step_by(nch).copied());
-        }
-        // Envelope buckets: the peak of every `bucket` samples.
-        let mut i = old_len;
-        while i < hist.len() {
-            let take = (bucket - env_count).min(hist.len() - i);
-            env_max = hist[i..i + take]
+            own.clear();
+            own.extend(buf.iter().skip(inp.channel).step_by(nch).copied());
+            &own
+        };
+        // Envelope buckets: the peak of every `bucket` input samples.
+        let mut i = 0;
+        while !ended && i < raw.len() {
+            let take = (bucket - env_count).min(raw.len() - i);
+            env_max = raw[i..i + take]
                 .iter()
                 .fold(env_max, |m, v| if v.abs() > m { v.abs() } else { m });
             env_count += take;
             i += take;
+            env_at += take as u64;
             if env_count == bucket {
-                let t = (hist_start + i as u64) as f64 / fsf;
+                let t = env_at as f64 / fs_in as f64;
                 envelope.push((t as f32, 20.0 * env_max.max(1e-7).log10()));
                 env_max = 0.0;
                 env_count = 0;
             }
+        }
+        front.push(raw, &mut hist);
+        if ended {
+            // Nothing past the recording's last sample.
+            let last = env_at.div_ceil(factor as u64);
+            hist.truncate(last.saturating_sub(hist_start) as usize);
         }
         let end = hist_start + hist.len() as u64;
         let at = |hist: &[f32], a: u64, n: usize| -> std::ops::Range<usize> {
@@ -495,7 +524,14 @@ pub fn spectral_pass(inp: &SpectralInput) -> Result<SpectralOutput> {
     }
     // Receiver passband from the noise floor's shape.
     if have_noise {
-        fig.passband_hz = passband(&noise_rel, bin_n, inp.tone_hz);
+        // Only where the front end is flat: beyond it, its own roll-off
+        // would pass for the receiver's.
+        let flat = if factor > 1 {
+            ((PASS_FRACTION * fsf / bin_n) as usize + 1).min(noise_rel.len())
+        } else {
+            noise_rel.len()
+        };
+        fig.passband_hz = passband(&noise_rel[..flat], bin_n, inp.tone_hz);
     }
     // Which edge clicks.
     let band = [
@@ -660,7 +696,8 @@ mod tests {
         // Slow obvious reference: the pass transforming its own spectrogram
         // frames. The survey's columns (same frames, window and transform)
         // must give the identical view, here with 3 frames per column and a
-        // part-column left over (22 s at 48 kHz: 2062 frames).
+        // part-column left over (22 s at 48 kHz, 12 kHz after the front
+        // end: 2062 frames).
         use crate::dsp::survey::Survey;
         let fs = 48_000u32;
         let dir = tempfile::tempdir().unwrap();
@@ -692,7 +729,8 @@ mod tests {
         }
         let s = sv.finish();
         let g = &s.spectrograms[0];
-        assert_eq!((g.nfft, g.frames_per_column), (1024, 3));
+        // 48 kHz decimated by 4: 21 ms frames are 256 samples at 12 kHz.
+        assert_eq!((g.nfft, g.frames_per_column), (256, 3));
         let els: Vec<(f64, f64)> = (0..110)
             .map(|k| (k as f64 * 0.2, k as f64 * 0.2 + 0.1))
             .collect();

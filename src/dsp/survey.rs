@@ -9,6 +9,8 @@ use std::sync::Arc;
 use realfft::{RealFftPlanner, RealToComplex};
 use rustfft::num_complex::Complex32;
 
+use super::decimate::{Decimator, PASS_FRACTION};
+use super::downconvert::plan_sizes;
 use super::window::hann;
 
 /// A tone found in the survey.
@@ -51,6 +53,7 @@ impl ChannelStats {
 /// What the survey found.
 #[derive(Clone, Debug)]
 pub struct SurveyResult {
+    /// Rate of the spectra and spectrograms (after front-end decimation), Hz.
     pub sample_rate_hz: u32,
     pub nfft: usize,
     pub candidates: Vec<Candidate>,
@@ -94,6 +97,9 @@ const PEAK_MARGIN_DB: f64 = 8.0;
 const CLIP_LEVEL: f32 = 0.9999;
 
 struct Chan {
+    /// This channel's samples of the latest block, at the input rate.
+    raw: Vec<f32>,
+    front: Decimator,
     pending: Vec<f32>,
     sum_p: Vec<f64>,
     sum_p2: Vec<f64>,
@@ -134,8 +140,15 @@ fn sample_stats(x: &[f32], st: &mut ChannelStats) {
 }
 
 /// Streaming survey; push interleaved blocks, then `finish`.
+///
+/// Peak, clipping and RMS come from the samples as they are; the spectra
+/// from the input decimated (`dsp::decimate`) to the downconverter's
+/// baseband rate, 10-20 kHz, so tones are looked for from 100 Hz up to
+/// `PASS_FRACTION` of that rate (4.8 kHz for 48 kHz input).
 pub struct Survey {
+    /// Rate of the spectra (the input rate over `factor`), Hz.
     fs: u32,
+    factor: usize,
     nfft: usize,
     hop: usize,
     win: Vec<f32>,
@@ -156,12 +169,15 @@ pub fn survey_nfft(fs: u32) -> usize {
 }
 
 impl Survey {
-    pub fn new(fs: u32, channels: usize) -> Survey {
+    pub fn new(fs_in: u32, channels: usize) -> Survey {
+        let factor = plan_sizes(fs_in).1;
+        let fs = fs_in / factor as u32;
         let nfft = survey_nfft(fs);
         let fft = RealFftPlanner::<f32>::new().plan_fft_forward(nfft);
         let nb = nfft / 2 + 1;
         Survey {
             fs,
+            factor,
             nfft,
             hop: nfft / 2,
             win: hann(nfft),
@@ -171,6 +187,8 @@ impl Survey {
             fft,
             chans: (0..channels)
                 .map(|_| Chan {
+                    raw: Vec::new(),
+                    front: Decimator::new(factor),
                     pending: Vec::with_capacity(2 * nfft),
                     sum_p: vec![0.0; nb],
                     sum_p2: vec![0.0; nb],
@@ -186,11 +204,11 @@ impl Survey {
     }
 
     /// Also keeps each channel's spectrogram (see [`SurveyGram`]), for a
-    /// recording of `total_frames` samples: at most
+    /// recording of `total_frames` input samples: at most
     /// [`SPECTROGRAM_COLUMNS_MAX`] columns, so memory does not grow with
     /// length.
     pub fn keep_spectrogram(&mut self, total_frames: u64) {
-        let per_col = frames_per_column(total_frames, self.nfft);
+        let per_col = frames_per_column(total_frames / self.factor as u64, self.nfft);
         self.gram_per_col = Some(per_col);
         for ch in &mut self.chans {
             ch.gram = SurveyGram {
@@ -207,14 +225,16 @@ impl Survey {
     pub fn push(&mut self, interleaved: &[f32]) {
         let nc = self.chans.len();
         for (c, ch) in self.chans.iter_mut().enumerate() {
-            let old = ch.pending.len();
-            if nc == 1 {
-                ch.pending.extend_from_slice(interleaved);
+            let own: &[f32] = if nc == 1 {
+                interleaved
             } else {
-                ch.pending
+                ch.raw.clear();
+                ch.raw
                     .extend(interleaved.iter().skip(c).step_by(nc).copied());
-            }
-            sample_stats(&ch.pending[old..], &mut ch.stats);
+                &ch.raw
+            };
+            sample_stats(own, &mut ch.stats);
+            ch.front.push(own, &mut ch.pending);
             ch.stats.samples += (interleaved.len() / nc) as u64;
             let mut start = 0;
             while ch.pending.len() - start >= self.nfft {
@@ -285,7 +305,12 @@ impl Survey {
             let nf = ch.frames as f64;
             let mean: Vec<f64> = ch.sum_p.iter().map(|p| p / nf).collect();
             let lo = ((100.0 / bin_hz).ceil() as usize).max(2);
-            let hi = ((0.45 * fs / bin_hz).floor() as usize).min(mean.len() - 3);
+            let top = if self.factor > 1 {
+                PASS_FRACTION * fs
+            } else {
+                0.45 * fs
+            };
+            let hi = ((top / bin_hz).floor() as usize).min(mean.len() - 3);
             if hi <= lo + 4 {
                 spectra.push(mean);
                 continue;
