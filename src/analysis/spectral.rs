@@ -282,10 +282,7 @@ pub fn spectral_pass(inp: &SpectralInput) -> Result<SpectralOutput> {
         let got = src.read_frames(&mut buf, 8192)?;
         let raw: &[f32] = if got == 0 {
             ended = true;
-            // Zeros after the end bring the last samples through the filter.
-            own.clear();
-            own.resize(front.flush_len(), 0.0);
-            &own
+            &[]
         } else if nch == 1 {
             &buf
         } else {
@@ -312,6 +309,9 @@ pub fn spectral_pass(inp: &SpectralInput) -> Result<SpectralOutput> {
         }
         front.push(raw, &mut hist);
         if ended {
+            // The last samples through the filter, the signal held after
+            // the end as before the start.
+            front.flush(&mut hist);
             // Nothing past the recording's last sample.
             let last = env_at.div_ceil(factor as u64);
             hist.truncate(last.saturating_sub(hist_start) as usize);

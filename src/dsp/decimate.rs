@@ -107,6 +107,8 @@ struct Stage {
     odd: Vec<f32>,
     /// The next input sample is odd.
     odd_next: bool,
+    /// The history before the first sample has been set.
+    primed: bool,
 }
 
 impl Stage {
@@ -119,13 +121,19 @@ impl Stage {
             c,
             k,
             even: Vec::new(),
-            // Zeros stand for the odd samples before the start.
             odd: vec![0.0; k],
             odd_next: false,
+            primed: false,
         }
     }
 
     fn push(&mut self, x: &[f32], kernel: Kernel, out: &mut Vec<f32>) {
+        if !self.primed && !x.is_empty() {
+            // Before the start the signal is taken to hold its first value,
+            // so a DC offset does not become a step that rings.
+            self.odd.iter_mut().for_each(|v| *v = x[0]);
+            self.primed = true;
+        }
         let mut xs = x;
         if self.odd_next && !xs.is_empty() {
             self.odd.push(xs[0]);
@@ -255,6 +263,8 @@ pub struct Decimator {
     /// Between stages.
     tmp: [Vec<f32>; 2],
     kernel: Kernel,
+    /// The latest input sample (flushing repeats it).
+    last: f32,
 }
 
 impl Decimator {
@@ -276,6 +286,7 @@ impl Decimator {
             stages,
             tmp: [Vec::new(), Vec::new()],
             kernel: pick_kernel(),
+            last: 0.0,
         }
     }
 
@@ -283,8 +294,21 @@ impl Decimator {
         self.factor
     }
 
-    /// Input samples to push after the end (zeros) so that every input
-    /// sample has reached an output.
+    /// Most input samples an output can wait for beyond its own centre:
+    /// each stage's look-ahead (2K - 1 samples) and its batching of outputs
+    /// by `LANES`, at the input rate.
+    pub fn lookahead(&self) -> usize {
+        let mut len = 0;
+        let mut scale = 1;
+        for st in &self.stages {
+            len += scale * (2 * st.k - 1 + 2 * LANES);
+            scale *= 2;
+        }
+        len
+    }
+
+    /// Input samples to push after the end so that every input sample has
+    /// reached an output.
     pub fn flush_len(&self) -> usize {
         let mut len = 0;
         let mut scale = 1;
@@ -301,6 +325,9 @@ impl Decimator {
         if n == 0 {
             out.extend_from_slice(x);
             return;
+        }
+        if let Some(v) = x.last() {
+            self.last = *v;
         }
         if n == 1 {
             self.stages[0].push(x, self.kernel, out);
@@ -322,9 +349,10 @@ impl Decimator {
         }
     }
 
-    /// Pushes `flush_len` zeros.
+    /// Pushes `flush_len` copies of the last sample (the signal is taken
+    /// to hold its last value, as it held its first before the start).
     pub fn flush(&mut self, out: &mut Vec<f32>) {
-        let z = vec![0.0f32; self.flush_len()];
+        let z = vec![self.last; self.flush_len()];
         self.push(&z, out);
     }
 }
@@ -417,8 +445,9 @@ mod tests {
                 .map(|j| {
                     let mut acc = 0.0;
                     for (t, ht) in h.iter().enumerate() {
-                        let i = (2 * j + t) as i64 - c as i64;
-                        if i >= 0 && (i as usize) < want.len() {
+                        // The signal holds its first value before the start.
+                        let i = ((2 * j + t) as i64 - c as i64).max(0);
+                        if (i as usize) < want.len() {
                             acc += ht * want[i as usize];
                         }
                     }
@@ -487,6 +516,17 @@ mod tests {
         }
         // 1e-5 of 0.5 is -94 dB: the aliases' residue plus ripple.
         assert!(worst < 1e-5, "{worst}");
+    }
+
+    #[test]
+    fn dc_comes_through_without_a_step_at_either_end() {
+        // Analytic: a constant is its own low-pass output; nothing rings at
+        // the start or the end.
+        let x = vec![0.25f32; 10_001];
+        let y = run(8, &x, 333);
+        assert!(y.len() * 8 >= x.len());
+        let worst = y.iter().map(|v| (v - 0.25).abs()).fold(0.0f32, f32::max);
+        assert!(worst < 1e-6, "{worst}");
     }
 
     #[test]

@@ -101,8 +101,10 @@ impl WavSource {
         if bytes == 0 || (float && bytes != 4 && bytes != 8) || (!float && bytes > 4) {
             return Err(CwError::input(path, "has an inconsistent format chunk"));
         }
+        // Blocks are read whole; a buffer smaller than a block lets those
+        // reads go straight into ours instead of through a second copy.
         let mut reader = BufReader::with_capacity(
-            1 << 16,
+            1 << 12,
             File::open(path).map_err(|e| CwError::input(path, format!("cannot be read ({e})")))?,
         );
         reader

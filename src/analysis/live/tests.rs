@@ -99,11 +99,14 @@ fn live_figures_match_the_file_analysis_and_the_truth() {
 fn live_elements_are_measured_within_the_lookahead_of_their_key_up() {
     // After the initial stretch, an element is measured once the stream has
     // passed its key-up by: the live lookahead, the downconverter's filter
-    // delay ((M-1)/2 = 512 samples at 48 kHz) and at most one hop (10 ms)
-    // plus the 480-frame block. Elements of the stretch itself wait for it.
+    // delay ((M-1)/2 = 512 samples at 48 kHz), at most one hop (10 ms) plus
+    // the 480-frame block, and the front-end decimator's look-ahead (48 to
+    // 12 kHz), which can also leave a hop to be completed by the next block.
+    // Elements of the stretch itself wait for it.
     let (x, _) = synth::render(&spec()).unwrap();
     let (_, seen) = run_live(&x, 1, LiveConfig::default(), 480);
-    let bound = LIVE_LOOKAHEAD_S + 512.0 / 48e3 + 0.01 + 0.01 + 0.002;
+    let front = crate::dsp::decimate::Decimator::new(4).lookahead() as f64 / 48e3 + 0.01;
+    let bound = LIVE_LOOKAHEAD_S + 512.0 / 48e3 + 0.01 + 0.01 + 0.002 + front;
     let late: Vec<f64> = seen
         .iter()
         .filter(|e| e.end_s > LOOKAHEAD_S + 0.1)
