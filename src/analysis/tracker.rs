@@ -6,8 +6,6 @@
 //! the signal that follows, which lets the first elements of a file be
 //! measured with levels from more than themselves.
 
-use std::collections::VecDeque;
-
 use rustfft::num_complex::{Complex32, Complex64};
 
 use super::element::{measure, Context, Measured};
@@ -161,6 +159,7 @@ struct NoiseAcc {
 }
 
 impl NoiseAcc {
+    #[inline]
     fn push(&mut self, z: Complex32) {
         self.block.push(z);
         self.up_power += z.norm_sqr() as f64;
@@ -237,7 +236,8 @@ impl EdgeAverage {
             if x < 0.0 || x + 1.0 >= z.len() as f64 {
                 continue;
             }
-            let i = x.floor() as usize;
+            // x >= 0: truncation is the floor (without a libm call).
+            let i = x as usize;
             let f = x - i as f64;
             *s += (1.0 - f) * z[i].norm_sqr() as f64 + f * z[i + 1].norm_sqr() as f64;
             *c += 1;
@@ -264,14 +264,24 @@ pub struct ToneTracker {
     dc: Downconverter,
     fs_d: f64,
     center_hz: f64,
-    zbuf: VecDeque<Complex32>,
+    /// Baseband from absolute index `zphys` on; indices below `zbase` are
+    /// trimmed (no longer used) and dropped in bulk when the buffer is full.
+    zbuf: Vec<Complex32>,
+    zphys: u64,
     zbase: u64,
     win: usize,
     run: Complex64,
-    det: VecDeque<f32>,
-    detbase: u64,
+    /// The block's detection envelope (scratch).
+    dnew: Vec<f64>,
+    /// Detection envelope from absolute index `detphys` on; `det0` is the
+    /// first index it has (u64::MAX until the first value).
+    det: Vec<f32>,
+    detphys: u64,
+    det0: u64,
     hist: LevelHistogram,
     levels: Option<StateLevels>,
+    /// Comparator thresholds from `levels` (on, off).
+    thr: (f64, f64),
     since_levels: usize,
     seg: Segmenter,
     seg_q: u64,
@@ -280,7 +290,12 @@ pub struct ToneTracker {
     post: u64,
     max_el: u64,
     guard: usize,
-    gap_fifo: VecDeque<Complex32>,
+    /// Key-up samples held back `guard` samples before they reach the
+    /// noise (a gap's last `guard` samples are never used): a ring of
+    /// `guard` slots, the oldest at `gap_pos` once `gap_len` == `guard`.
+    gap_ring: Vec<Complex32>,
+    gap_pos: usize,
+    gap_len: usize,
     last_down: Option<u64>,
     noise: NoiseAcc,
     out: Vec<Complex32>,
@@ -324,14 +339,18 @@ impl ToneTracker {
         let s = |x: f64| (x * fs_d).round() as u64;
         ToneTracker {
             center_hz,
-            zbuf: VecDeque::new(),
+            zbuf: Vec::new(),
+            zphys: 0,
             zbase: 0,
             win,
             run: Complex64::new(0.0, 0.0),
-            det: VecDeque::new(),
-            detbase: 0,
+            dnew: Vec::new(),
+            det: Vec::new(),
+            detphys: 0,
+            det0: u64::MAX,
             hist: LevelHistogram::new(),
             levels: None,
+            thr: (f64::INFINITY, f64::INFINITY),
             since_levels: 0,
             seg: Segmenter::new(s(MIN_MARK_S), s(MIN_GAP_S)),
             seg_q: 0,
@@ -340,7 +359,9 @@ impl ToneTracker {
             post: s(POST_S),
             max_el: s(MAX_ELEMENT_S),
             guard: s(NOISE_GUARD_S) as usize,
-            gap_fifo: VecDeque::new(),
+            gap_ring: vec![Complex32::new(0.0, 0.0); s(NOISE_GUARD_S) as usize],
+            gap_pos: 0,
+            gap_len: 0,
             last_down: None,
             noise: NoiseAcc {
                 block_len: s(0.01) as usize,
@@ -465,41 +486,65 @@ impl ToneTracker {
     }
 
     fn ingest(&mut self, zs: &[Complex32], last: bool) {
-        for &z in zs {
-            self.zbuf.push_back(z);
-            let head = self.zbase + self.zbuf.len() as u64 - 1;
-            self.run += Complex64::new(z.re as f64, z.im as f64);
-            let w = self.win as u64;
-            if head >= w {
-                let old = self.zbuf[(head - w - self.zbase) as usize];
-                self.run -= Complex64::new(old.re as f64, old.im as f64);
+        self.compact();
+        let w = self.win as u64;
+        // Absolute index of zs[0].
+        let start = self.zphys + self.zbuf.len() as u64;
+        self.zbuf.extend_from_slice(zs);
+        // The detection envelope of the block: a coherent moving average of
+        // `w` samples (the sum runs on, in f64), one value per sample from
+        // the w-th on. First the samples whose window is not yet full...
+        let mut dnew = std::mem::take(&mut self.dnew);
+        dnew.clear();
+        let mut run = self.run;
+        let c64 = |z: &Complex32| Complex64::new(z.re as f64, z.im as f64);
+        let lead = (w.saturating_sub(start) as usize).min(zs.len());
+        for (k, z) in zs[..lead].iter().enumerate() {
+            run += c64(z);
+            if start + k as u64 + 1 >= w {
+                dnew.push((run / w as f64).norm_sqr().sqrt());
             }
-            if head + 1 >= w {
+        }
+        // ...then the steady state, where the sample `w` back leaves the sum.
+        if lead < zs.len() {
+            let old_from = (start + lead as u64 - w - self.zphys) as usize;
+            let old = &self.zbuf[old_from..old_from + zs.len() - lead];
+            for (z, o) in zs[lead..].iter().zip(old) {
+                run += c64(z);
+                run -= c64(o);
                 // sqrt of the squared magnitude: hypot guards against overflow
                 // that baseband samples of at most full scale cannot reach.
-                let d = (self.run / w as f64).norm_sqr().sqrt();
-                // det index = head - (w-1)/2
-                if self.det.is_empty() {
-                    self.detbase = head - (w - 1) / 2;
-                }
-                self.det.push_back(d as f32);
-                self.hist.add(d);
-                self.since_levels += 1;
-                if self.since_levels >= 600 || self.levels.is_none() {
-                    self.since_levels = 0;
-                    self.levels = self.hist.levels();
-                }
+                dnew.push((run / w as f64).norm_sqr().sqrt());
             }
-            let det_head = self.detbase + self.det.len() as u64;
+        }
+        self.run = run;
+        // Absolute baseband index of the sample that completed dnew[0].
+        let first_head = start + zs.len() as u64 - dnew.len() as u64;
+        if self.det0 == u64::MAX && !dnew.is_empty() {
+            // det index = head - (w-1)/2
+            self.det0 = first_head - (w - 1) / 2;
+            self.detphys = self.det0;
+        }
+        self.det.extend(dnew.iter().map(|&d| d as f32));
+        let det_from = first_head - (w - 1) / 2;
+        for (k, &d) in dnew.iter().enumerate() {
+            self.hist.add(d);
+            self.since_levels += 1;
+            if self.since_levels >= 600 || self.levels.is_none() {
+                self.since_levels = 0;
+                self.set_levels(self.hist.levels());
+            }
+            let det_head = det_from + k as u64 + 1;
             while self.seg_q + self.lookahead < det_head {
                 self.segment_one();
             }
             if !last {
-                self.trim();
+                self.trim(first_head + k as u64 + 1);
             }
         }
+        self.dnew = dnew;
         if last {
-            let det_head = self.detbase + self.det.len() as u64;
+            let det_head = self.detphys + self.det.len() as u64;
             while self.seg_q < det_head {
                 self.segment_one();
             }
@@ -511,24 +556,44 @@ impl ToneTracker {
         }
     }
 
-    fn thresholds(&self) -> (f64, f64) {
-        match self.levels {
+    /// New state levels and the comparator thresholds they give.
+    fn set_levels(&mut self, levels: Option<StateLevels>) {
+        self.levels = levels;
+        self.thr = match levels {
             // Keying needs the states at least 6 dB apart.
             Some(l) if l.high > 2.0 * l.low && l.high > 0.0 => {
                 (l.at(ON_FRACTION), l.at(OFF_FRACTION))
             }
             _ => (f64::INFINITY, f64::INFINITY),
+        };
+    }
+
+    /// Drops the trimmed baseband and the segmented envelope from the
+    /// buffers' fronts once they are at least half of them (so each sample
+    /// is moved a bounded number of times).
+    fn compact(&mut self) {
+        let dead = (self.zbase - self.zphys) as usize;
+        if dead > 0 && 2 * dead >= self.zbuf.len() {
+            self.zbuf.drain(..dead);
+            self.zphys = self.zbase;
+        }
+        let dead = self.seg_q.saturating_sub(self.detphys) as usize;
+        if dead > 0 && 2 * dead >= self.det.len() && self.det0 != u64::MAX {
+            let dead = dead.min(self.det.len());
+            self.det.drain(..dead);
+            self.detphys += dead as u64;
         }
     }
 
+    #[inline]
     fn segment_one(&mut self) {
         let q = self.seg_q;
-        if q < self.detbase {
+        if q < self.det0 {
             self.seg_q += 1;
             return;
         }
-        let v = self.det[(q - self.detbase) as usize] as f64;
-        let (on, off) = self.thresholds();
+        let v = self.det[(q - self.detphys) as usize] as f64;
+        let (on, off) = self.thr;
         let was_on = self.seg.is_on();
         let mark = self.seg.step(q, v, on, off);
         if self.cut_open && !self.seg.is_on() {
@@ -538,7 +603,8 @@ impl ToneTracker {
             self.measure_mark(m, false);
         }
         if self.seg.is_on() {
-            self.gap_fifo.clear();
+            self.gap_len = 0;
+            self.gap_pos = 0;
             if let Some(start) = self.seg.open_start() {
                 if q - start > self.max_el {
                     if let Some(m) = self.seg.force_close(q) {
@@ -550,21 +616,46 @@ impl ToneTracker {
         } else if self.seg.open_start().is_none() && !was_on {
             let past_edge = self.last_down.is_none_or(|d| q >= d + self.guard as u64);
             if past_edge && q >= self.zbase {
-                let z = self.zbuf[(q - self.zbase) as usize];
-                self.gap_fifo.push_back(z);
-                if self.gap_fifo.len() > self.guard {
-                    let z = self.gap_fifo.pop_front().expect("non-empty");
-                    self.noise.push(z);
-                }
+                let z = self.zbuf[(q - self.zphys) as usize];
+                self.gap_push(z);
             }
         }
         self.seg_q += 1;
     }
 
+    /// A key-up sample into the guard delay; the one leaving it goes to
+    /// the noise.
+    #[inline]
+    fn gap_push(&mut self, z: Complex32) {
+        if self.guard == 0 {
+            self.noise.push(z);
+            return;
+        }
+        if self.gap_len == self.guard {
+            self.noise.push(self.gap_ring[self.gap_pos]);
+        } else {
+            self.gap_len += 1;
+        }
+        self.gap_ring[self.gap_pos] = z;
+        self.gap_pos += 1;
+        if self.gap_pos == self.guard {
+            self.gap_pos = 0;
+        }
+    }
+
+    /// Measures one mark on the baseband it spans (the buffer is lent out
+    /// for the measurement, not copied).
+    #[inline(never)]
     fn measure_mark(&mut self, m: Mark, cut: bool) {
+        let zbuf = std::mem::take(&mut self.zbuf);
+        self.measure_on(&zbuf, m, cut);
+        self.zbuf = zbuf;
+    }
+
+    fn measure_on(&mut self, zbuf: &[Complex32], m: Mark, cut: bool) {
         let Some(levels) = self.levels else { return };
         let a = m.up.saturating_sub(self.pre).max(self.zbase);
-        let head = self.zbase + self.zbuf.len() as u64;
+        let head = self.zphys + zbuf.len() as u64;
         let b = (m.down + self.post).min(head);
         if b <= a + 8 || m.up < a || m.down >= b {
             self.unmeasured += 1;
@@ -576,11 +667,7 @@ impl ToneTracker {
             .filter(|&d| d < (m.up - a) as usize)
             .unwrap_or(0);
         self.last_down = Some(m.down);
-        let z: Vec<Complex32> = self
-            .zbuf
-            .range((a - self.zbase) as usize..(b - self.zbase) as usize)
-            .copied()
-            .collect();
+        let z = &zbuf[(a - self.zphys) as usize..(b - self.zphys) as usize];
         let w = self.win as f64;
         let pn = self.noise.power().unwrap_or(levels.low * levels.low * w);
         let corr = |x: f64| (x * x - pn / w).max(0.0).sqrt();
@@ -593,16 +680,16 @@ impl ToneTracker {
             noise_power: pn,
         };
         let Some(r): Option<Measured> =
-            measure(&z, (m.up - a) as usize, (m.down - a) as usize, lo, &ctx)
+            measure(z, (m.up - a) as usize, (m.down - a) as usize, lo, &ctx)
         else {
             self.unmeasured += 1;
             return;
         };
         if r.rise_samples.is_some() && !self.cut_open {
-            self.mean_rise.add(&z, r.t50_rise);
+            self.mean_rise.add(z, r.t50_rise);
         }
         if r.fall_samples.is_some() && !cut {
-            self.mean_fall.add(&z, r.t50_fall);
+            self.mean_fall.add(z, r.t50_fall);
         }
         let t0 = self.dc.time_of(a);
         if let (Some(r9), Some(f9), false, false) = (r.t90_rise, r.t90_fall, cut, self.cut_open) {
@@ -626,7 +713,7 @@ impl ToneTracker {
                     if x < 0.0 || x + 1.0 >= z.len() as f64 {
                         return f32::NAN;
                     }
-                    let i = x.floor() as usize;
+                    let i = x as usize;
                     let f = x - i as f64;
                     let p = (1.0 - f) * z[i].norm_sqr() as f64 + f * z[i + 1].norm_sqr() as f64;
                     ((p - pn).max(0.0).sqrt() / high) as f32
@@ -693,20 +780,20 @@ impl ToneTracker {
         self.trace_points = points;
     }
 
-    fn trim(&mut self) {
+    /// Moves the trimmed mark: the baseband before the open (or held)
+    /// mark's capture is no longer needed, beyond the moving average's
+    /// window (`head`: baseband samples seen).
+    #[inline]
+    fn trim(&mut self, head: u64) {
         let keep_from = self
             .seg
             .open_start()
             .unwrap_or(self.seg_q)
             .min(self.seg_q)
             .saturating_sub(self.pre);
-        while self.zbase < keep_from && self.zbuf.len() > self.win + 1 {
-            self.zbuf.pop_front();
-            self.zbase += 1;
-        }
-        while self.detbase < self.seg_q && !self.det.is_empty() {
-            self.det.pop_front();
-            self.detbase += 1;
+        let floor = head.saturating_sub(self.win as u64 + 1);
+        if self.zbase < keep_from && self.zbase < floor {
+            self.zbase = keep_from.min(floor);
         }
     }
 }
