@@ -526,28 +526,41 @@ impl ToneTracker {
             self.detphys = self.det0;
         }
         self.det.extend(dnew.iter().map(|&d| d as f32));
-        let det_from = first_head - (w - 1) / 2;
-        for (k, &d) in dnew.iter().enumerate() {
-            self.hist.add(d);
+        // Envelope index after dnew[k] is dnew[k]'s plus one.
+        let det_end = first_head - (w - 1) / 2 + 1;
+        // Chunks from one state-level update to the next: the sample that
+        // updates the levels goes into the histogram before the update, the
+        // rest of the chunk after it, and the chunk's segmentation uses the
+        // updated levels, as when everything runs sample by sample (the
+        // segmenter reads neither the histogram nor anything the chunk's
+        // later samples change).
+        let mut k = 0;
+        while k < dnew.len() {
+            self.hist.add(dnew[k]);
             self.since_levels += 1;
             if self.since_levels >= 600 || self.levels.is_none() {
                 self.since_levels = 0;
                 self.set_levels(self.hist.levels());
             }
-            let det_head = det_from + k as u64 + 1;
-            while self.seg_q + self.lookahead < det_head {
-                self.segment_one();
+            let end = if self.levels.is_none() {
+                k + 1
+            } else {
+                (k + 600 - self.since_levels).min(dnew.len())
+            };
+            for &d in &dnew[k + 1..end] {
+                self.hist.add(d);
             }
-            if !last {
-                self.trim(first_head + k as u64 + 1);
-            }
+            self.since_levels += end - k - 1;
+            let det_head = det_end + end as u64 - 1;
+            self.segment_to(det_head.saturating_sub(self.lookahead));
+            k = end;
+        }
+        if !last {
+            self.trim(start + zs.len() as u64);
         }
         self.dnew = dnew;
         if last {
-            let det_head = self.detphys + self.det.len() as u64;
-            while self.seg_q < det_head {
-                self.segment_one();
-            }
+            self.segment_to(self.detphys + self.det.len() as u64);
             let (held, _open) = self.seg.finish(self.seg_q);
             if let Some(m) = held {
                 self.measure_mark(m, false);
@@ -585,7 +598,41 @@ impl ToneTracker {
         }
     }
 
-    #[inline]
+    /// Segments every envelope sample before `end`. The common steps (the
+    /// comparator stays off with nothing held, or stays on) are taken here;
+    /// the rest in `segment_one`.
+    fn segment_to(&mut self, end: u64) {
+        while self.seg_q < end {
+            let q = self.seg_q;
+            if q >= self.det0 {
+                let v = self.det[(q - self.detphys) as usize] as f64;
+                let (on, off) = self.thr;
+                if self.seg.is_on() {
+                    // On: no mark is held, so the open mark starts at `up`.
+                    let start = self.seg.open_start().unwrap_or(q);
+                    if !(v < off) && q - start <= self.max_el {
+                        self.gap_len = 0;
+                        self.gap_pos = 0;
+                        self.seg_q += 1;
+                        continue;
+                    }
+                } else if self.seg.is_idle() && !(v >= on) {
+                    self.cut_open = false;
+                    let past_edge = self.last_down.is_none_or(|d| q >= d + self.guard as u64);
+                    if past_edge && q >= self.zbase {
+                        let z = self.zbuf[(q - self.zphys) as usize];
+                        self.gap_push(z);
+                    }
+                    self.seg_q += 1;
+                    continue;
+                }
+            }
+            self.segment_one();
+        }
+    }
+
+    /// One comparator step in full.
+    #[inline(never)]
     fn segment_one(&mut self) {
         let q = self.seg_q;
         if q < self.det0 {
