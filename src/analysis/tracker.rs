@@ -207,6 +207,51 @@ impl NoiseAcc {
     }
 }
 
+/// Key-up samples held back `guard` samples before they reach the noise,
+/// so a gap's last `guard` samples (the approach to the next rise) are never
+/// used: a ring of `guard` slots, the oldest at `pos` once `len` == `guard`.
+#[derive(Clone, Debug)]
+struct GapDelay {
+    ring: Vec<Complex32>,
+    pos: usize,
+    len: usize,
+}
+
+impl GapDelay {
+    fn new(guard: usize) -> GapDelay {
+        GapDelay {
+            ring: vec![Complex32::new(0.0, 0.0); guard],
+            pos: 0,
+            len: 0,
+        }
+    }
+    /// Forgets the held samples (a rise: they were too close to it).
+    fn clear(&mut self) {
+        self.pos = 0;
+        self.len = 0;
+    }
+    /// Samples in; those leaving the delay go to `noise`.
+    fn push_run(&mut self, zs: &[Complex32], noise: &mut NoiseAcc) {
+        let guard = self.ring.len();
+        for &z in zs {
+            if guard == 0 {
+                noise.push(z);
+                continue;
+            }
+            if self.len == guard {
+                noise.push(self.ring[self.pos]);
+            } else {
+                self.len += 1;
+            }
+            self.ring[self.pos] = z;
+            self.pos += 1;
+            if self.pos == guard {
+                self.pos = 0;
+            }
+        }
+    }
+}
+
 /// Half-width of the averaged edge window, s (holds edges up to ~15 ms).
 pub const MEAN_EDGE_HALF_S: f64 = 0.025;
 
@@ -237,7 +282,7 @@ impl EdgeAverage {
                 continue;
             }
             // x >= 0: truncation is the floor (without a libm call).
-            let i = x as usize;
+            let i = x as i64 as usize;
             let f = x - i as f64;
             *s += (1.0 - f) * z[i].norm_sqr() as f64 + f * z[i + 1].norm_sqr() as f64;
             *c += 1;
@@ -290,12 +335,7 @@ pub struct ToneTracker {
     post: u64,
     max_el: u64,
     guard: usize,
-    /// Key-up samples held back `guard` samples before they reach the
-    /// noise (a gap's last `guard` samples are never used): a ring of
-    /// `guard` slots, the oldest at `gap_pos` once `gap_len` == `guard`.
-    gap_ring: Vec<Complex32>,
-    gap_pos: usize,
-    gap_len: usize,
+    gap: GapDelay,
     last_down: Option<u64>,
     noise: NoiseAcc,
     out: Vec<Complex32>,
@@ -359,9 +399,7 @@ impl ToneTracker {
             post: s(POST_S),
             max_el: s(MAX_ELEMENT_S),
             guard: s(NOISE_GUARD_S) as usize,
-            gap_ring: vec![Complex32::new(0.0, 0.0); s(NOISE_GUARD_S) as usize],
-            gap_pos: 0,
-            gap_len: 0,
+            gap: GapDelay::new(s(NOISE_GUARD_S) as usize),
             last_down: None,
             noise: NoiseAcc {
                 block_len: s(0.01) as usize,
@@ -547,9 +585,7 @@ impl ToneTracker {
             } else {
                 (k + 600 - self.since_levels).min(dnew.len())
             };
-            for &d in &dnew[k + 1..end] {
-                self.hist.add(d);
-            }
+            self.hist.add_slice(&dnew[k + 1..end]);
             self.since_levels += end - k - 1;
             let det_head = det_end + end as u64 - 1;
             self.segment_to(det_head.saturating_sub(self.lookahead));
@@ -598,33 +634,47 @@ impl ToneTracker {
         }
     }
 
-    /// Segments every envelope sample before `end`. The common steps (the
-    /// comparator stays off with nothing held, or stays on) are taken here;
-    /// the rest in `segment_one`.
+    /// Segments every envelope sample before `end`. Runs of steps that
+    /// change nothing (the comparator stays off with nothing held, or stays
+    /// on) are taken here in one go; the rest one by one in `segment_one`.
     fn segment_to(&mut self, end: u64) {
         while self.seg_q < end {
             let q = self.seg_q;
             if q >= self.det0 {
-                let v = self.det[(q - self.detphys) as usize] as f64;
                 let (on, off) = self.thr;
+                let (from, to) = ((q - self.detphys) as usize, (end - self.detphys) as usize);
                 if self.seg.is_on() {
-                    // On: no mark is held, so the open mark starts at `up`.
+                    // On, so no mark is held and the open mark starts at `up`;
+                    // the run ends at a fall or where the mark grows too long.
                     let start = self.seg.open_start().unwrap_or(q);
-                    if !(v < off) && q - start <= self.max_el {
-                        self.gap_len = 0;
-                        self.gap_pos = 0;
-                        self.seg_q += 1;
+                    let lim = ((start + self.max_el + 1).saturating_sub(self.detphys) as usize)
+                        .clamp(from, to);
+                    let n = self.det[from..lim]
+                        .iter()
+                        .take_while(|&&v| !((v as f64) < off))
+                        .count();
+                    if n > 0 {
+                        self.gap.clear();
+                        self.seg_q += n as u64;
                         continue;
                     }
-                } else if self.seg.is_idle() && !(v >= on) {
-                    self.cut_open = false;
-                    let past_edge = self.last_down.is_none_or(|d| q >= d + self.guard as u64);
-                    if past_edge && q >= self.zbase {
-                        let z = self.zbuf[(q - self.zphys) as usize];
-                        self.gap_push(z);
+                } else if self.seg.is_idle() {
+                    let n = self.det[from..to]
+                        .iter()
+                        .take_while(|&&v| !((v as f64) >= on))
+                        .count();
+                    if n > 0 {
+                        self.cut_open = false;
+                        // Key-up samples past the last fall's guard go to the noise.
+                        let past_edge = self.last_down.map_or(q, |d| d + self.guard as u64);
+                        let (g0, g1) = (past_edge.max(q).max(self.zbase), q + n as u64);
+                        if g0 < g1 {
+                            let zs = &self.zbuf[(g0 - self.zphys) as usize..(g1 - self.zphys) as usize];
+                            self.gap.push_run(zs, &mut self.noise);
+                        }
+                        self.seg_q = g1;
+                        continue;
                     }
-                    self.seg_q += 1;
-                    continue;
                 }
             }
             self.segment_one();
@@ -650,8 +700,7 @@ impl ToneTracker {
             self.measure_mark(m, false);
         }
         if self.seg.is_on() {
-            self.gap_len = 0;
-            self.gap_pos = 0;
+            self.gap.clear();
             if let Some(start) = self.seg.open_start() {
                 if q - start > self.max_el {
                     if let Some(m) = self.seg.force_close(q) {
@@ -664,30 +713,10 @@ impl ToneTracker {
             let past_edge = self.last_down.is_none_or(|d| q >= d + self.guard as u64);
             if past_edge && q >= self.zbase {
                 let z = self.zbuf[(q - self.zphys) as usize];
-                self.gap_push(z);
+                self.gap.push_run(&[z], &mut self.noise);
             }
         }
         self.seg_q += 1;
-    }
-
-    /// A key-up sample into the guard delay; the one leaving it goes to
-    /// the noise.
-    #[inline]
-    fn gap_push(&mut self, z: Complex32) {
-        if self.guard == 0 {
-            self.noise.push(z);
-            return;
-        }
-        if self.gap_len == self.guard {
-            self.noise.push(self.gap_ring[self.gap_pos]);
-        } else {
-            self.gap_len += 1;
-        }
-        self.gap_ring[self.gap_pos] = z;
-        self.gap_pos += 1;
-        if self.gap_pos == self.guard {
-            self.gap_pos = 0;
-        }
     }
 
     /// Measures one mark on the baseband it spans (the buffer is lent out

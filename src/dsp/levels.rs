@@ -190,6 +190,23 @@ impl LevelHistogram {
         self.last = 0;
     }
 
+    /// Adds many amplitudes (as `add` one by one).
+    pub fn add_slice(&mut self, amplitudes: &[f64]) {
+        let (mut first, mut last) = (self.first, self.last);
+        let table = self.table;
+        let (counts, sums, blocks) = (&mut self.counts[..], &mut self.sums[..], &mut self.blocks[..]);
+        for &a in amplitudes {
+            let i = table.bin(a);
+            counts[i] += 1;
+            blocks[i / BLOCK] += 1;
+            sums[i] += a.max(0.0);
+            first = first.min(i);
+            last = last.max(i);
+        }
+        self.total += amplitudes.len() as u64;
+        (self.first, self.last) = (first, last);
+    }
+
     #[inline]
     pub fn add(&mut self, amplitude: f64) {
         let i = self.table.bin(amplitude);
@@ -230,9 +247,15 @@ impl LevelHistogram {
     }
 
     fn quantile_bin_upward(&self, target: u64) -> usize {
+        // Whole blocks that leave the cumulative count short of the target
+        // cannot hold the quantile; bins below `first` are empty.
         let mut acc = 0;
-        // Bins below `first` are empty and cannot reach the target.
-        for (i, &c) in self.counts.iter().enumerate().skip(self.first) {
+        let mut b = self.first / BLOCK;
+        while b < self.blocks.len() && acc + self.blocks[b] < target {
+            acc += self.blocks[b];
+            b += 1;
+        }
+        for (i, &c) in self.counts.iter().enumerate().skip(b * BLOCK) {
             acc += c;
             if acc >= target {
                 return i;
@@ -285,34 +308,57 @@ impl LevelHistogram {
     fn mode_best(&self, lo: usize, hi: usize) -> (u64, usize) {
         let half = (0.5 / BIN_DB) as usize;
         // Sliding window sum over [i-half, i+half] restricted to lo..hi; the
-        // first bin with the largest sum wins. Bins are taken a block at a
-        // time, and a block is skipped when the coarse counts around it
-        // cannot beat the best sum so far (ties keep the earlier bin).
+        // first bin with the largest sum wins. Bins go a block at a time. A
+        // block's windows lie within it and its neighbours, whose coarse
+        // counts bound their sums: the block with the largest bound is
+        // searched first, and then only blocks whose bound could beat (or,
+        // before the best bin, tie) the best sum so far.
         let w_lo = |i: usize| i.saturating_sub(half).max(lo);
         let w_hi = |i: usize| (i + half + 1).min(hi);
-        let count = |j: usize| if j >= lo && j < hi { self.counts[j] } else { 0 };
-        let mut best = (0u64, lo);
-        let mut i = lo;
-        while i < hi {
-            let end = ((i / BLOCK + 1) * BLOCK).min(hi);
+        let last_block = self.blocks.len() - 1;
+        let bound = |b: usize| -> u64 {
+            let (i, end) = ((b * BLOCK).max(lo), ((b + 1) * BLOCK).min(hi));
             let (b0, b1) = (
                 i.saturating_sub(half) / BLOCK,
-                ((end - 1 + half) / BLOCK).min(self.blocks.len() - 1),
+                ((end - 1 + half) / BLOCK).min(last_block),
             );
-            let bound: u64 = self.blocks[b0..=b1].iter().sum();
-            if bound > best.0 {
-                let mut run: u64 = self.counts[w_lo(i)..w_hi(i)].iter().sum();
-                if run > best.0 {
-                    best = (run, i);
+            self.blocks[b0..=b1].iter().sum()
+        };
+        let counts = &self.counts[..hi];
+        let search = |b: usize, best: &mut (u64, usize)| {
+            let (i, end) = ((b * BLOCK).max(lo), ((b + 1) * BLOCK).min(hi));
+            let mut run: u64 = counts[w_lo(i)..w_hi(i)].iter().sum();
+            if run > best.0 || (run == best.0 && i < best.1) {
+                *best = (run, i);
+            }
+            for j in i + 1..end {
+                if j + half < hi {
+                    run += counts[j + half];
                 }
-                for j in i + 1..end {
-                    run = run + count(j + half) - count(j.wrapping_sub(half + 1));
-                    if run > best.0 {
-                        best = (run, j);
-                    }
+                if j > lo + half {
+                    run -= counts[j - half - 1];
+                }
+                if run > best.0 || (run == best.0 && j < best.1) {
+                    *best = (run, j);
                 }
             }
-            i = end;
+        };
+        let (first, last) = (lo / BLOCK, (hi - 1) / BLOCK);
+        let top = (first..=last)
+            .rev()
+            .max_by_key(|&b| bound(b))
+            .unwrap_or(first);
+        // A zero sum at lo, which later bins tie but do not beat.
+        let mut best = (0u64, lo);
+        search(top, &mut best);
+        for b in first..=last {
+            if b == top {
+                continue;
+            }
+            let u = bound(b);
+            if u > best.0 || (u == best.0 && (b * BLOCK).max(lo) < best.1) {
+                search(b, &mut best);
+            }
         }
         best
     }
@@ -458,7 +504,7 @@ mod tests {
     }
 
     #[test]
-    fn downward_quantile_equals_the_upward_scan() {
+    fn quantiles_equal_the_cumulative_scan() {
         // Slow obvious reference: the cumulative scan from the lowest bin,
         // on histograms of varied shape (pseudo-random amplitudes over
         // 120 dB, some in one bin), at the quantiles the levels use and more.
@@ -476,13 +522,21 @@ mod tests {
                 };
                 h.add(a);
             }
+            // The plain cumulative scan from bin 0.
+            let scan = |t: u64| {
+                let mut acc = 0;
+                for (i, &c) in h.counts.iter().enumerate() {
+                    acc += c;
+                    if acc >= t {
+                        return i;
+                    }
+                }
+                h.counts.len() - 1
+            };
             for q in [0.002, 0.1, 0.5, 0.51, 0.9, 0.998, 1.0] {
                 let t = (q * h.total as f64).ceil().max(1.0) as u64;
-                assert_eq!(
-                    h.quantile_bin(q),
-                    h.quantile_bin_upward(t),
-                    "trial {trial} q {q}"
-                );
+                assert_eq!(h.quantile_bin(q), scan(t), "trial {trial} q {q}");
+                assert_eq!(h.quantile_bin_upward(t), scan(t), "trial {trial} q {q}");
             }
         }
     }
