@@ -159,6 +159,24 @@ struct NoiseAcc {
 }
 
 impl NoiseAcc {
+    /// Adds many samples (as `push` one by one).
+    fn push_slice(&mut self, mut zs: &[Complex32]) {
+        while !zs.is_empty() {
+            let room = self.block_len.saturating_sub(self.block.len()).max(1);
+            let take = room.min(zs.len());
+            let (head, rest) = zs.split_at(take);
+            self.block.extend_from_slice(head);
+            for z in head {
+                self.up_power += z.norm_sqr() as f64;
+            }
+            self.up_count += take as f64;
+            if self.block.len() >= self.block_len {
+                self.close();
+            }
+            zs = rest;
+        }
+    }
+
     #[inline]
     fn push(&mut self, z: Complex32) {
         self.block.push(z);
@@ -230,23 +248,41 @@ impl GapDelay {
         self.pos = 0;
         self.len = 0;
     }
-    /// Samples in; those leaving the delay go to `noise`.
-    fn push_run(&mut self, zs: &[Complex32], noise: &mut NoiseAcc) {
+    /// Samples in; those leaving the delay go to `noise`, oldest first.
+    fn push_run(&mut self, mut zs: &[Complex32], noise: &mut NoiseAcc) {
         let guard = self.ring.len();
-        for &z in zs {
-            if guard == 0 {
-                noise.push(z);
-                continue;
-            }
-            if self.len == guard {
+        if guard == 0 {
+            noise.push_slice(zs);
+            return;
+        }
+        // Filling: nothing leaves yet, and `pos` runs with `len` (both
+        // reset by `clear`).
+        if self.len < guard {
+            let fill = (guard - self.len).min(zs.len());
+            self.ring[self.len..self.len + fill].copy_from_slice(&zs[..fill]);
+            self.len += fill;
+            self.pos = self.len % guard;
+            zs = &zs[fill..];
+        }
+        if zs.is_empty() {
+            return;
+        }
+        // Full (the oldest at `pos`): each sample in pushes the oldest out.
+        if zs.len() >= guard {
+            noise.push_slice(&self.ring[self.pos..]);
+            noise.push_slice(&self.ring[..self.pos]);
+            let (out, keep) = zs.split_at(zs.len() - guard);
+            noise.push_slice(out);
+            self.ring.copy_from_slice(keep);
+            self.pos = 0;
+        } else {
+            for &z in zs {
                 noise.push(self.ring[self.pos]);
-            } else {
-                self.len += 1;
-            }
-            self.ring[self.pos] = z;
-            self.pos += 1;
-            if self.pos == guard {
-                self.pos = 0;
+                self.ring[self.pos] = z;
+                self.pos += 1;
+                if self.pos == guard {
+                    self.pos = 0;
+                }
             }
         }
     }
@@ -669,7 +705,8 @@ impl ToneTracker {
                         let past_edge = self.last_down.map_or(q, |d| d + self.guard as u64);
                         let (g0, g1) = (past_edge.max(q).max(self.zbase), q + n as u64);
                         if g0 < g1 {
-                            let zs = &self.zbuf[(g0 - self.zphys) as usize..(g1 - self.zphys) as usize];
+                            let zs =
+                                &self.zbuf[(g0 - self.zphys) as usize..(g1 - self.zphys) as usize];
                             self.gap.push_run(zs, &mut self.noise);
                         }
                         self.seg_q = g1;
@@ -871,5 +908,55 @@ impl ToneTracker {
         if self.zbase < keep_from && self.zbase < floor {
             self.zbase = keep_from.min(floor);
         }
+    }
+}
+
+#[cfg(test)]
+mod gap_tests {
+    use super::*;
+    use std::collections::VecDeque;
+
+    #[test]
+    fn gap_delay_and_noise_runs_equal_sample_by_sample() {
+        // Oracle: the FIFO of `guard` samples as a VecDeque, and NoiseAcc fed
+        // one sample at a time. Runs of varied length, with clears.
+        let guard = 7;
+        let mk = || NoiseAcc {
+            block_len: 5,
+            mean_var_factor: 2.0,
+            ..Default::default()
+        };
+        let (mut fast, mut slow) = (mk(), mk());
+        let mut gap = GapDelay::new(guard);
+        let mut fifo: VecDeque<Complex32> = VecDeque::new();
+        let mut seed = 3u64;
+        let mut t = 0.0f32;
+        for round in 0..400 {
+            seed = seed.wrapping_mul(6_364_136_223_846_793_005).wrapping_add(1);
+            let n = (seed >> 33) as usize % 20;
+            let zs: Vec<Complex32> = (0..n)
+                .map(|_| {
+                    t += 1.0;
+                    Complex32::new((t * 0.37).sin(), (t * 0.11).cos())
+                })
+                .collect();
+            if round % 9 == 0 {
+                gap.clear();
+                fifo.clear();
+            }
+            gap.push_run(&zs, &mut fast);
+            for &z in &zs {
+                fifo.push_back(z);
+                if fifo.len() > guard {
+                    slow.push(fifo.pop_front().unwrap());
+                }
+            }
+        }
+        assert_eq!(fast.up_count, slow.up_count);
+        assert_eq!(fast.up_power, slow.up_power);
+        assert_eq!(fast.up_count, slow.up_count);
+        assert_eq!(fast.sum_dev, slow.sum_dev);
+        assert_eq!(fast.coherent, slow.coherent);
+        assert_eq!(fast.block, slow.block);
     }
 }

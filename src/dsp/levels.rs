@@ -194,7 +194,11 @@ impl LevelHistogram {
     pub fn add_slice(&mut self, amplitudes: &[f64]) {
         let (mut first, mut last) = (self.first, self.last);
         let table = self.table;
-        let (counts, sums, blocks) = (&mut self.counts[..], &mut self.sums[..], &mut self.blocks[..]);
+        let (counts, sums, blocks) = (
+            &mut self.counts[..],
+            &mut self.sums[..],
+            &mut self.blocks[..],
+        );
         for &a in amplitudes {
             let i = table.bin(a);
             counts[i] += 1;
@@ -487,7 +491,18 @@ mod tests {
             }
             let n = h.counts.len();
             let (f, l) = (h.first.min(n - 1), h.last);
-            let ends = [0, f.saturating_sub(3), f, f + 31, f + 64, l / 2, l, l + 1, l + 40, n];
+            let ends = [
+                0,
+                f.saturating_sub(3),
+                f,
+                f + 31,
+                f + 64,
+                l / 2,
+                l,
+                l + 1,
+                l + 40,
+                n,
+            ];
             for &lo in &ends {
                 for &hi in &ends {
                     if lo < hi && hi <= n {
