@@ -6,6 +6,8 @@
 //! the signal that follows, which lets the first elements of a file be
 //! measured with levels from more than themselves.
 
+use std::cmp::Ordering;
+
 use rustfft::num_complex::{Complex32, Complex64};
 
 use super::element::{measure, Context, Measured};
@@ -600,8 +602,9 @@ impl ToneTracker {
             self.detphys = self.det0;
         }
         self.det.extend(dnew.iter().map(|&d| d as f32));
-        // Envelope index after dnew[k] is dnew[k]'s plus one.
-        let det_end = first_head - (w - 1) / 2 + 1;
+        // Envelope index after dnew[k] is dnew[k]'s plus one (exact
+        // whenever there is a dnew[0]).
+        let det_end = (first_head + 1).saturating_sub((w - 1) / 2);
         // Chunks from one state-level update to the next: the sample that
         // updates the levels goes into the histogram before the update, the
         // rest of the chunk after it, and the chunk's segmentation uses the
@@ -687,7 +690,7 @@ impl ToneTracker {
                         .clamp(from, to);
                     let n = self.det[from..lim]
                         .iter()
-                        .take_while(|&&v| !((v as f64) < off))
+                        .take_while(|&&v| (v as f64).partial_cmp(&off) != Some(Ordering::Less))
                         .count();
                     if n > 0 {
                         self.gap.clear();
@@ -697,7 +700,7 @@ impl ToneTracker {
                 } else if self.seg.is_idle() {
                     let n = self.det[from..to]
                         .iter()
-                        .take_while(|&&v| !((v as f64) >= on))
+                        .take_while(|&&v| (v as f64).partial_cmp(&on).is_none_or(Ordering::is_lt))
                         .count();
                     if n > 0 {
                         self.cut_open = false;

@@ -122,7 +122,7 @@ impl BinTable {
     #[inline]
     fn bin(&self, amplitude: f64) -> usize {
         // Zero, negative and NaN amplitudes go to bin 0, as in `bin_by_log`.
-        if !(amplitude > 0.0) {
+        if amplitude.partial_cmp(&0.0) != Some(std::cmp::Ordering::Greater) {
             return 0;
         }
         let key = amplitude.to_bits() >> CELL_SHIFT;
