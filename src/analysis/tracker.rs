@@ -6,7 +6,7 @@
 //! the signal that follows, which lets the first elements of a file be
 //! measured with levels from more than themselves.
 
-use std::collections::VecDeque;
+use std::cmp::Ordering;
 
 use rustfft::num_complex::{Complex32, Complex64};
 
@@ -161,6 +161,25 @@ struct NoiseAcc {
 }
 
 impl NoiseAcc {
+    /// Adds many samples (as `push` one by one).
+    fn push_slice(&mut self, mut zs: &[Complex32]) {
+        while !zs.is_empty() {
+            let room = self.block_len.saturating_sub(self.block.len()).max(1);
+            let take = room.min(zs.len());
+            let (head, rest) = zs.split_at(take);
+            self.block.extend_from_slice(head);
+            for z in head {
+                self.up_power += z.norm_sqr() as f64;
+            }
+            self.up_count += take as f64;
+            if self.block.len() >= self.block_len {
+                self.close();
+            }
+            zs = rest;
+        }
+    }
+
+    #[inline]
     fn push(&mut self, z: Complex32) {
         self.block.push(z);
         self.up_power += z.norm_sqr() as f64;
@@ -208,6 +227,69 @@ impl NoiseAcc {
     }
 }
 
+/// Key-up samples held back `guard` samples before they reach the noise,
+/// so a gap's last `guard` samples (the approach to the next rise) are never
+/// used: a ring of `guard` slots, the oldest at `pos` once `len` == `guard`.
+#[derive(Clone, Debug)]
+struct GapDelay {
+    ring: Vec<Complex32>,
+    pos: usize,
+    len: usize,
+}
+
+impl GapDelay {
+    fn new(guard: usize) -> GapDelay {
+        GapDelay {
+            ring: vec![Complex32::new(0.0, 0.0); guard],
+            pos: 0,
+            len: 0,
+        }
+    }
+    /// Forgets the held samples (a rise: they were too close to it).
+    fn clear(&mut self) {
+        self.pos = 0;
+        self.len = 0;
+    }
+    /// Samples in; those leaving the delay go to `noise`, oldest first.
+    fn push_run(&mut self, mut zs: &[Complex32], noise: &mut NoiseAcc) {
+        let guard = self.ring.len();
+        if guard == 0 {
+            noise.push_slice(zs);
+            return;
+        }
+        // Filling: nothing leaves yet, and `pos` runs with `len` (both
+        // reset by `clear`).
+        if self.len < guard {
+            let fill = (guard - self.len).min(zs.len());
+            self.ring[self.len..self.len + fill].copy_from_slice(&zs[..fill]);
+            self.len += fill;
+            self.pos = self.len % guard;
+            zs = &zs[fill..];
+        }
+        if zs.is_empty() {
+            return;
+        }
+        // Full (the oldest at `pos`): each sample in pushes the oldest out.
+        if zs.len() >= guard {
+            noise.push_slice(&self.ring[self.pos..]);
+            noise.push_slice(&self.ring[..self.pos]);
+            let (out, keep) = zs.split_at(zs.len() - guard);
+            noise.push_slice(out);
+            self.ring.copy_from_slice(keep);
+            self.pos = 0;
+        } else {
+            for &z in zs {
+                noise.push(self.ring[self.pos]);
+                self.ring[self.pos] = z;
+                self.pos += 1;
+                if self.pos == guard {
+                    self.pos = 0;
+                }
+            }
+        }
+    }
+}
+
 /// Half-width of the averaged edge window, s (holds edges up to ~15 ms).
 pub const MEAN_EDGE_HALF_S: f64 = 0.025;
 
@@ -237,7 +319,8 @@ impl EdgeAverage {
             if x < 0.0 || x + 1.0 >= z.len() as f64 {
                 continue;
             }
-            let i = x.floor() as usize;
+            // x >= 0: truncation is the floor (without a libm call).
+            let i = x as i64 as usize;
             let f = x - i as f64;
             *s += (1.0 - f) * z[i].norm_sqr() as f64 + f * z[i + 1].norm_sqr() as f64;
             *c += 1;
@@ -264,14 +347,24 @@ pub struct ToneTracker {
     dc: Downconverter,
     fs_d: f64,
     center_hz: f64,
-    zbuf: VecDeque<Complex32>,
+    /// Baseband from absolute index `zphys` on; indices below `zbase` are
+    /// trimmed (no longer used) and dropped in bulk when the buffer is full.
+    zbuf: Vec<Complex32>,
+    zphys: u64,
     zbase: u64,
     win: usize,
     run: Complex64,
-    det: VecDeque<f32>,
-    detbase: u64,
+    /// The block's detection envelope (scratch).
+    dnew: Vec<f64>,
+    /// Detection envelope from absolute index `detphys` on; `det0` is the
+    /// first index it has (u64::MAX until the first value).
+    det: Vec<f32>,
+    detphys: u64,
+    det0: u64,
     hist: LevelHistogram,
     levels: Option<StateLevels>,
+    /// Comparator thresholds from `levels` (on, off).
+    thr: (f64, f64),
     since_levels: usize,
     seg: Segmenter,
     seg_q: u64,
@@ -280,7 +373,7 @@ pub struct ToneTracker {
     post: u64,
     max_el: u64,
     guard: usize,
-    gap_fifo: VecDeque<Complex32>,
+    gap: GapDelay,
     last_down: Option<u64>,
     noise: NoiseAcc,
     out: Vec<Complex32>,
@@ -324,14 +417,18 @@ impl ToneTracker {
         let s = |x: f64| (x * fs_d).round() as u64;
         ToneTracker {
             center_hz,
-            zbuf: VecDeque::new(),
+            zbuf: Vec::new(),
+            zphys: 0,
             zbase: 0,
             win,
             run: Complex64::new(0.0, 0.0),
-            det: VecDeque::new(),
-            detbase: 0,
+            dnew: Vec::new(),
+            det: Vec::new(),
+            detphys: 0,
+            det0: u64::MAX,
             hist: LevelHistogram::new(),
             levels: None,
+            thr: (f64::INFINITY, f64::INFINITY),
             since_levels: 0,
             seg: Segmenter::new(s(MIN_MARK_S), s(MIN_GAP_S)),
             seg_q: 0,
@@ -340,7 +437,7 @@ impl ToneTracker {
             post: s(POST_S),
             max_el: s(MAX_ELEMENT_S),
             guard: s(NOISE_GUARD_S) as usize,
-            gap_fifo: VecDeque::new(),
+            gap: GapDelay::new(s(NOISE_GUARD_S) as usize),
             last_down: None,
             noise: NoiseAcc {
                 block_len: s(0.01) as usize,
@@ -465,44 +562,80 @@ impl ToneTracker {
     }
 
     fn ingest(&mut self, zs: &[Complex32], last: bool) {
-        for &z in zs {
-            self.zbuf.push_back(z);
-            let head = self.zbase + self.zbuf.len() as u64 - 1;
-            self.run += Complex64::new(z.re as f64, z.im as f64);
-            let w = self.win as u64;
-            if head >= w {
-                let old = self.zbuf[(head - w - self.zbase) as usize];
-                self.run -= Complex64::new(old.re as f64, old.im as f64);
-            }
-            if head + 1 >= w {
-                // sqrt of the squared magnitude: hypot guards against overflow
-                // that baseband samples of at most full scale cannot reach.
-                let d = (self.run / w as f64).norm_sqr().sqrt();
-                // det index = head - (w-1)/2
-                if self.det.is_empty() {
-                    self.detbase = head - (w - 1) / 2;
-                }
-                self.det.push_back(d as f32);
-                self.hist.add(d);
-                self.since_levels += 1;
-                if self.since_levels >= 600 || self.levels.is_none() {
-                    self.since_levels = 0;
-                    self.levels = self.hist.levels();
-                }
-            }
-            let det_head = self.detbase + self.det.len() as u64;
-            while self.seg_q + self.lookahead < det_head {
-                self.segment_one();
-            }
-            if !last {
-                self.trim();
+        self.compact();
+        let w = self.win as u64;
+        // Absolute index of zs[0].
+        let start = self.zphys + self.zbuf.len() as u64;
+        self.zbuf.extend_from_slice(zs);
+        // The detection envelope of the block: a coherent moving average of
+        // `w` samples (the sum runs on, in f64), one value per sample from
+        // the w-th on. First the samples whose window is not yet full...
+        let mut dnew = std::mem::take(&mut self.dnew);
+        dnew.clear();
+        let mut run = self.run;
+        let c64 = |z: &Complex32| Complex64::new(z.re as f64, z.im as f64);
+        let lead = (w.saturating_sub(start) as usize).min(zs.len());
+        for (k, z) in zs[..lead].iter().enumerate() {
+            run += c64(z);
+            if start + k as u64 + 1 >= w {
+                dnew.push((run / w as f64).norm_sqr().sqrt());
             }
         }
-        if last {
-            let det_head = self.detbase + self.det.len() as u64;
-            while self.seg_q < det_head {
-                self.segment_one();
+        // ...then the steady state, where the sample `w` back leaves the sum.
+        if lead < zs.len() {
+            let old_from = (start + lead as u64 - w - self.zphys) as usize;
+            let old = &self.zbuf[old_from..old_from + zs.len() - lead];
+            for (z, o) in zs[lead..].iter().zip(old) {
+                run += c64(z);
+                run -= c64(o);
+                // sqrt of the squared magnitude: hypot guards against overflow
+                // that baseband samples of at most full scale cannot reach.
+                dnew.push((run / w as f64).norm_sqr().sqrt());
             }
+        }
+        self.run = run;
+        // Absolute baseband index of the sample that completed dnew[0].
+        let first_head = start + zs.len() as u64 - dnew.len() as u64;
+        if self.det0 == u64::MAX && !dnew.is_empty() {
+            // det index = head - (w-1)/2
+            self.det0 = first_head - (w - 1) / 2;
+            self.detphys = self.det0;
+        }
+        self.det.extend(dnew.iter().map(|&d| d as f32));
+        // Envelope index after dnew[k] is dnew[k]'s plus one (exact
+        // whenever there is a dnew[0]).
+        let det_end = (first_head + 1).saturating_sub((w - 1) / 2);
+        // Chunks from one state-level update to the next: the sample that
+        // updates the levels goes into the histogram before the update, the
+        // rest of the chunk after it, and the chunk's segmentation uses the
+        // updated levels, as when everything runs sample by sample (the
+        // segmenter reads neither the histogram nor anything the chunk's
+        // later samples change).
+        let mut k = 0;
+        while k < dnew.len() {
+            self.hist.add(dnew[k]);
+            self.since_levels += 1;
+            if self.since_levels >= 600 || self.levels.is_none() {
+                self.since_levels = 0;
+                self.set_levels(self.hist.levels());
+            }
+            let end = if self.levels.is_none() {
+                k + 1
+            } else {
+                (k + 600 - self.since_levels).min(dnew.len())
+            };
+            self.hist.add_slice(&dnew[k + 1..end]);
+            self.since_levels += end - k - 1;
+            let det_head = det_end + end as u64 - 1;
+            self.segment_to(det_head.saturating_sub(self.lookahead));
+            k = end;
+        }
+        if !last {
+            self.trim(start + zs.len() as u64);
+        }
+        self.dnew = dnew;
+        if last {
+            self.segment_to(self.detphys + self.det.len() as u64);
             let (held, _open) = self.seg.finish(self.seg_q);
             if let Some(m) = held {
                 self.measure_mark(m, false);
@@ -511,24 +644,93 @@ impl ToneTracker {
         }
     }
 
-    fn thresholds(&self) -> (f64, f64) {
-        match self.levels {
+    /// New state levels and the comparator thresholds they give.
+    fn set_levels(&mut self, levels: Option<StateLevels>) {
+        self.levels = levels;
+        self.thr = match levels {
             // Keying needs the states at least 6 dB apart.
             Some(l) if l.high > 2.0 * l.low && l.high > 0.0 => {
                 (l.at(ON_FRACTION), l.at(OFF_FRACTION))
             }
             _ => (f64::INFINITY, f64::INFINITY),
+        };
+    }
+
+    /// Drops the trimmed baseband and the segmented envelope from the
+    /// buffers' fronts once they are at least half of them (so each sample
+    /// is moved a bounded number of times).
+    fn compact(&mut self) {
+        let dead = (self.zbase - self.zphys) as usize;
+        if dead > 0 && 2 * dead >= self.zbuf.len() {
+            self.zbuf.drain(..dead);
+            self.zphys = self.zbase;
+        }
+        let dead = self.seg_q.saturating_sub(self.detphys) as usize;
+        if dead > 0 && 2 * dead >= self.det.len() && self.det0 != u64::MAX {
+            let dead = dead.min(self.det.len());
+            self.det.drain(..dead);
+            self.detphys += dead as u64;
         }
     }
 
+    /// Segments every envelope sample before `end`. Runs of steps that
+    /// change nothing (the comparator stays off with nothing held, or stays
+    /// on) are taken here in one go; the rest one by one in `segment_one`.
+    fn segment_to(&mut self, end: u64) {
+        while self.seg_q < end {
+            let q = self.seg_q;
+            if q >= self.det0 {
+                let (on, off) = self.thr;
+                let (from, to) = ((q - self.detphys) as usize, (end - self.detphys) as usize);
+                if self.seg.is_on() {
+                    // On, so no mark is held and the open mark starts at `up`;
+                    // the run ends at a fall or where the mark grows too long.
+                    let start = self.seg.open_start().unwrap_or(q);
+                    let lim = ((start + self.max_el + 1).saturating_sub(self.detphys) as usize)
+                        .clamp(from, to);
+                    let n = self.det[from..lim]
+                        .iter()
+                        .take_while(|&&v| (v as f64).partial_cmp(&off) != Some(Ordering::Less))
+                        .count();
+                    if n > 0 {
+                        self.gap.clear();
+                        self.seg_q += n as u64;
+                        continue;
+                    }
+                } else if self.seg.is_idle() {
+                    let n = self.det[from..to]
+                        .iter()
+                        .take_while(|&&v| (v as f64).partial_cmp(&on).is_none_or(Ordering::is_lt))
+                        .count();
+                    if n > 0 {
+                        self.cut_open = false;
+                        // Key-up samples past the last fall's guard go to the noise.
+                        let past_edge = self.last_down.map_or(q, |d| d + self.guard as u64);
+                        let (g0, g1) = (past_edge.max(q).max(self.zbase), q + n as u64);
+                        if g0 < g1 {
+                            let zs =
+                                &self.zbuf[(g0 - self.zphys) as usize..(g1 - self.zphys) as usize];
+                            self.gap.push_run(zs, &mut self.noise);
+                        }
+                        self.seg_q = g1;
+                        continue;
+                    }
+                }
+            }
+            self.segment_one();
+        }
+    }
+
+    /// One comparator step in full.
+    #[inline(never)]
     fn segment_one(&mut self) {
         let q = self.seg_q;
-        if q < self.detbase {
+        if q < self.det0 {
             self.seg_q += 1;
             return;
         }
-        let v = self.det[(q - self.detbase) as usize] as f64;
-        let (on, off) = self.thresholds();
+        let v = self.det[(q - self.detphys) as usize] as f64;
+        let (on, off) = self.thr;
         let was_on = self.seg.is_on();
         let mark = self.seg.step(q, v, on, off);
         if self.cut_open && !self.seg.is_on() {
@@ -538,7 +740,7 @@ impl ToneTracker {
             self.measure_mark(m, false);
         }
         if self.seg.is_on() {
-            self.gap_fifo.clear();
+            self.gap.clear();
             if let Some(start) = self.seg.open_start() {
                 if q - start > self.max_el {
                     if let Some(m) = self.seg.force_close(q) {
@@ -550,21 +752,26 @@ impl ToneTracker {
         } else if self.seg.open_start().is_none() && !was_on {
             let past_edge = self.last_down.is_none_or(|d| q >= d + self.guard as u64);
             if past_edge && q >= self.zbase {
-                let z = self.zbuf[(q - self.zbase) as usize];
-                self.gap_fifo.push_back(z);
-                if self.gap_fifo.len() > self.guard {
-                    let z = self.gap_fifo.pop_front().expect("non-empty");
-                    self.noise.push(z);
-                }
+                let z = self.zbuf[(q - self.zphys) as usize];
+                self.gap.push_run(&[z], &mut self.noise);
             }
         }
         self.seg_q += 1;
     }
 
+    /// Measures one mark on the baseband it spans (the buffer is lent out
+    /// for the measurement, not copied).
+    #[inline(never)]
     fn measure_mark(&mut self, m: Mark, cut: bool) {
+        let zbuf = std::mem::take(&mut self.zbuf);
+        self.measure_on(&zbuf, m, cut);
+        self.zbuf = zbuf;
+    }
+
+    fn measure_on(&mut self, zbuf: &[Complex32], m: Mark, cut: bool) {
         let Some(levels) = self.levels else { return };
         let a = m.up.saturating_sub(self.pre).max(self.zbase);
-        let head = self.zbase + self.zbuf.len() as u64;
+        let head = self.zphys + zbuf.len() as u64;
         let b = (m.down + self.post).min(head);
         if b <= a + 8 || m.up < a || m.down >= b {
             self.unmeasured += 1;
@@ -576,11 +783,7 @@ impl ToneTracker {
             .filter(|&d| d < (m.up - a) as usize)
             .unwrap_or(0);
         self.last_down = Some(m.down);
-        let z: Vec<Complex32> = self
-            .zbuf
-            .range((a - self.zbase) as usize..(b - self.zbase) as usize)
-            .copied()
-            .collect();
+        let z = &zbuf[(a - self.zphys) as usize..(b - self.zphys) as usize];
         let w = self.win as f64;
         let pn = self.noise.power().unwrap_or(levels.low * levels.low * w);
         let corr = |x: f64| (x * x - pn / w).max(0.0).sqrt();
@@ -593,16 +796,16 @@ impl ToneTracker {
             noise_power: pn,
         };
         let Some(r): Option<Measured> =
-            measure(&z, (m.up - a) as usize, (m.down - a) as usize, lo, &ctx)
+            measure(z, (m.up - a) as usize, (m.down - a) as usize, lo, &ctx)
         else {
             self.unmeasured += 1;
             return;
         };
         if r.rise_samples.is_some() && !self.cut_open {
-            self.mean_rise.add(&z, r.t50_rise);
+            self.mean_rise.add(z, r.t50_rise);
         }
         if r.fall_samples.is_some() && !cut {
-            self.mean_fall.add(&z, r.t50_fall);
+            self.mean_fall.add(z, r.t50_fall);
         }
         let t0 = self.dc.time_of(a);
         if let (Some(r9), Some(f9), false, false) = (r.t90_rise, r.t90_fall, cut, self.cut_open) {
@@ -626,7 +829,7 @@ impl ToneTracker {
                     if x < 0.0 || x + 1.0 >= z.len() as f64 {
                         return f32::NAN;
                     }
-                    let i = x.floor() as usize;
+                    let i = x as usize;
                     let f = x - i as f64;
                     let p = (1.0 - f) * z[i].norm_sqr() as f64 + f * z[i + 1].norm_sqr() as f64;
                     ((p - pn).max(0.0).sqrt() / high) as f32
@@ -693,20 +896,70 @@ impl ToneTracker {
         self.trace_points = points;
     }
 
-    fn trim(&mut self) {
+    /// Moves the trimmed mark: the baseband before the open (or held)
+    /// mark's capture is no longer needed, beyond the moving average's
+    /// window (`head`: baseband samples seen).
+    #[inline]
+    fn trim(&mut self, head: u64) {
         let keep_from = self
             .seg
             .open_start()
             .unwrap_or(self.seg_q)
             .min(self.seg_q)
             .saturating_sub(self.pre);
-        while self.zbase < keep_from && self.zbuf.len() > self.win + 1 {
-            self.zbuf.pop_front();
-            self.zbase += 1;
+        let floor = head.saturating_sub(self.win as u64 + 1);
+        if self.zbase < keep_from && self.zbase < floor {
+            self.zbase = keep_from.min(floor);
         }
-        while self.detbase < self.seg_q && !self.det.is_empty() {
-            self.det.pop_front();
-            self.detbase += 1;
+    }
+}
+
+#[cfg(test)]
+mod gap_tests {
+    use super::*;
+    use std::collections::VecDeque;
+
+    #[test]
+    fn gap_delay_and_noise_runs_equal_sample_by_sample() {
+        // Oracle: the FIFO of `guard` samples as a VecDeque, and NoiseAcc fed
+        // one sample at a time. Runs of varied length, with clears.
+        let guard = 7;
+        let mk = || NoiseAcc {
+            block_len: 5,
+            mean_var_factor: 2.0,
+            ..Default::default()
+        };
+        let (mut fast, mut slow) = (mk(), mk());
+        let mut gap = GapDelay::new(guard);
+        let mut fifo: VecDeque<Complex32> = VecDeque::new();
+        let mut seed = 3u64;
+        let mut t = 0.0f32;
+        for round in 0..400 {
+            seed = seed.wrapping_mul(6_364_136_223_846_793_005).wrapping_add(1);
+            let n = (seed >> 33) as usize % 20;
+            let zs: Vec<Complex32> = (0..n)
+                .map(|_| {
+                    t += 1.0;
+                    Complex32::new((t * 0.37).sin(), (t * 0.11).cos())
+                })
+                .collect();
+            if round % 9 == 0 {
+                gap.clear();
+                fifo.clear();
+            }
+            gap.push_run(&zs, &mut fast);
+            for &z in &zs {
+                fifo.push_back(z);
+                if fifo.len() > guard {
+                    slow.push(fifo.pop_front().unwrap());
+                }
+            }
         }
+        assert_eq!(fast.up_count, slow.up_count);
+        assert_eq!(fast.up_power, slow.up_power);
+        assert_eq!(fast.up_count, slow.up_count);
+        assert_eq!(fast.sum_dev, slow.sum_dev);
+        assert_eq!(fast.coherent, slow.coherent);
+        assert_eq!(fast.block, slow.block);
     }
 }

@@ -22,12 +22,134 @@ impl StateLevels {
 const MIN_DB: f64 = -200.0;
 const MAX_DB: f64 = 20.0;
 const BIN_DB: f64 = 0.05;
+/// Bins per block of the coarse counts that let the mode search skip
+/// stretches that cannot hold the mode.
+const BLOCK: usize = 32;
+
+/// Number of bins.
+fn bin_count() -> usize {
+    ((MAX_DB - MIN_DB) / BIN_DB) as usize
+}
+
+/// The defining bin of an amplitude: 0.05 dB steps of 20 log10(a) from
+/// `MIN_DB`, clamped to the histogram. 20 log10 goes through the natural
+/// logarithm, which libm computes several times faster than log10 (equal to
+/// within an ulp). `BinTable` reproduces it without a logarithm per sample.
+fn bin_by_log(amplitude: f64, n: usize) -> usize {
+    let db = if amplitude > 0.0 {
+        amplitude.ln() * (20.0 / std::f64::consts::LN_10)
+    } else {
+        MIN_DB
+    };
+    (((db - MIN_DB) / BIN_DB) as usize).min(n - 1)
+}
+
+/// Bits of an f64's pattern below the cell key: 8 mantissa bits stay, so a
+/// cell spans at most 2^(1/256), 0.034 dB, less than a bin, and holds at
+/// most one bin edge.
+const CELL_SHIFT: u32 = 52 - 8;
+
+/// `bin_by_log` without the logarithm: the top bits of the amplitude's bit
+/// pattern (monotone in a positive f64) pick a cell, the cell gives the bin
+/// of its smallest value, and one comparison with the next bin's first
+/// amplitude settles which side of that edge the amplitude lies. The edges
+/// are found from `bin_by_log` itself, so the bins are identical wherever
+/// `bin_by_log` is monotone (tested across every edge).
+#[derive(Debug)]
+struct BinTable {
+    /// edges[i]: smallest amplitude with `bin_by_log` >= i (edges[0] = 0,
+    /// edges[n] = infinity).
+    edges: Vec<f64>,
+    /// Bin of each cell's smallest value, for keys `key_lo..key_hi`.
+    cells: Vec<u16>,
+    key_lo: u64,
+    key_hi: u64,
+    n: usize,
+}
+
+impl BinTable {
+    fn new() -> BinTable {
+        let n = bin_count();
+        let f = |a: f64| bin_by_log(a, n);
+        // 2^-40 is -241 dB, below MIN_DB; 2^4 is +24 dB, above MAX_DB.
+        let key_lo = 2f64.powi(-40).to_bits() >> CELL_SHIFT;
+        let key_hi = 16f64.to_bits() >> CELL_SHIFT;
+        assert!(f(2f64.powi(-40)) == 0 && f(16.0) == n - 1);
+        let mut edges = vec![0.0; n + 1];
+        edges[n] = f64::INFINITY;
+        for (i, e) in edges.iter_mut().enumerate().take(n).skip(1) {
+            // The nominal edge, then a bisection on the bit pattern between
+            // values either side of it (widened until they are).
+            let guess = 10f64.powf((MIN_DB + i as f64 * BIN_DB) / 20.0).to_bits();
+            let mut span = 64u64;
+            let (mut lo, mut hi) = loop {
+                let (lo, hi) = (guess - span, guess + span);
+                if f(f64::from_bits(lo)) < i && f(f64::from_bits(hi)) >= i {
+                    break (lo, hi);
+                }
+                span *= 4;
+            };
+            // Invariant: f(lo) < i <= f(hi).
+            while hi - lo > 1 {
+                let mid = lo + (hi - lo) / 2;
+                if f(f64::from_bits(mid)) >= i {
+                    hi = mid;
+                } else {
+                    lo = mid;
+                }
+            }
+            *e = f64::from_bits(hi);
+        }
+        // A cell's bin: the number of edges at or below its smallest value.
+        let mut cells = Vec::with_capacity((key_hi - key_lo) as usize);
+        let mut b = 0usize;
+        for key in key_lo..key_hi {
+            let a = f64::from_bits(key << CELL_SHIFT);
+            while b + 1 < n && edges[b + 1] <= a {
+                b += 1;
+            }
+            cells.push(b as u16);
+        }
+        BinTable {
+            edges,
+            cells,
+            key_lo,
+            key_hi,
+            n,
+        }
+    }
+
+    #[inline]
+    fn bin(&self, amplitude: f64) -> usize {
+        // Zero, negative and NaN amplitudes go to bin 0, as in `bin_by_log`.
+        if amplitude.partial_cmp(&0.0) != Some(std::cmp::Ordering::Greater) {
+            return 0;
+        }
+        let key = amplitude.to_bits() >> CELL_SHIFT;
+        if key < self.key_lo {
+            return 0;
+        }
+        if key >= self.key_hi {
+            return self.n - 1;
+        }
+        let i = self.cells[(key - self.key_lo) as usize] as usize;
+        i + (amplitude >= self.edges[i + 1]) as usize
+    }
+}
+
+fn bin_table() -> &'static BinTable {
+    static TABLE: std::sync::OnceLock<BinTable> = std::sync::OnceLock::new();
+    TABLE.get_or_init(BinTable::new)
+}
 
 /// Cumulative amplitude histogram.
 #[derive(Clone, Debug)]
 pub struct LevelHistogram {
     counts: Vec<u64>,
     sums: Vec<f64>,
+    /// Counts summed over `BLOCK` bins.
+    blocks: Vec<u64>,
+    table: &'static BinTable,
     total: u64,
     /// Lowest bin holding a count (quantile scans start there).
     first: usize,
@@ -43,10 +165,12 @@ impl Default for LevelHistogram {
 
 impl LevelHistogram {
     pub fn new() -> LevelHistogram {
-        let n = ((MAX_DB - MIN_DB) / BIN_DB) as usize;
+        let n = bin_count();
         LevelHistogram {
             counts: vec![0; n],
             sums: vec![0.0; n],
+            blocks: vec![0; n.div_ceil(BLOCK)],
+            table: bin_table(),
             total: 0,
             first: n,
             last: 0,
@@ -60,22 +184,38 @@ impl LevelHistogram {
     pub fn clear(&mut self) {
         self.counts.iter_mut().for_each(|c| *c = 0);
         self.sums.iter_mut().for_each(|c| *c = 0.0);
+        self.blocks.iter_mut().for_each(|c| *c = 0);
         self.total = 0;
         self.first = self.counts.len();
         self.last = 0;
     }
 
+    /// Adds many amplitudes (as `add` one by one).
+    pub fn add_slice(&mut self, amplitudes: &[f64]) {
+        let (mut first, mut last) = (self.first, self.last);
+        let table = self.table;
+        let (counts, sums, blocks) = (
+            &mut self.counts[..],
+            &mut self.sums[..],
+            &mut self.blocks[..],
+        );
+        for &a in amplitudes {
+            let i = table.bin(a);
+            counts[i] += 1;
+            blocks[i / BLOCK] += 1;
+            sums[i] += a.max(0.0);
+            first = first.min(i);
+            last = last.max(i);
+        }
+        self.total += amplitudes.len() as u64;
+        (self.first, self.last) = (first, last);
+    }
+
     #[inline]
     pub fn add(&mut self, amplitude: f64) {
-        let db = if amplitude > 0.0 {
-            // 20 log10(a) through the natural logarithm, which libm computes
-            // several times faster than log10 (equal to within an ulp).
-            amplitude.ln() * (20.0 / std::f64::consts::LN_10)
-        } else {
-            MIN_DB
-        };
-        let i = (((db - MIN_DB) / BIN_DB) as usize).min(self.counts.len() - 1);
+        let i = self.table.bin(amplitude);
         self.counts[i] += 1;
+        self.blocks[i / BLOCK] += 1;
         self.sums[i] += amplitude.max(0.0);
         self.total += 1;
         self.first = self.first.min(i);
@@ -111,9 +251,15 @@ impl LevelHistogram {
     }
 
     fn quantile_bin_upward(&self, target: u64) -> usize {
+        // Whole blocks that leave the cumulative count short of the target
+        // cannot hold the quantile; bins below `first` are empty.
         let mut acc = 0;
-        // Bins below `first` are empty and cannot reach the target.
-        for (i, &c) in self.counts.iter().enumerate().skip(self.first) {
+        let mut b = self.first / BLOCK;
+        while b < self.blocks.len() && acc + self.blocks[b] < target {
+            acc += self.blocks[b];
+            b += 1;
+        }
+        for (i, &c) in self.counts.iter().enumerate().skip(b * BLOCK) {
             acc += c;
             if acc >= target {
                 return i;
@@ -129,31 +275,13 @@ impl LevelHistogram {
         if hi <= lo {
             return None;
         }
-        let half = (0.5 / BIN_DB) as usize;
-        let mut best = (0u64, lo);
-        let mut run: u64 = 0;
-        // Sliding window sum over [i-half, i+half] restricted to lo..hi.
-        let w_lo = |i: usize| i.saturating_sub(half).max(lo);
-        let w_hi = |i: usize| (i + half + 1).min(hi);
-        for c in &self.counts[w_lo(lo)..w_hi(lo)] {
-            run += c;
-        }
-        for i in lo..hi {
-            if i > lo {
-                if i + half < hi {
-                    run += self.counts[i + half];
-                }
-                if i > half && i - half > lo {
-                    run -= self.counts[i - half - 1];
-                }
-            }
-            if run > best.0 {
-                best = (run, i);
-            }
-        }
+        let best = self.mode_best(lo, hi);
         if best.0 == 0 {
             return None;
         }
+        let half = (0.5 / BIN_DB) as usize;
+        let w_lo = |i: usize| i.saturating_sub(half).max(lo);
+        let w_hi = |i: usize| (i + half + 1).min(hi);
         // The wide window finds the region; within it, the peak of a +-0.1 dB
         // window is the mode (a pile-up beside a flat plateau, as an RC edge
         // makes, would otherwise drag the wide window off the plateau).
@@ -179,6 +307,66 @@ impl LevelHistogram {
         })
     }
 
+    /// Largest +-0.5 dB window sum in lo..hi (restricted to lo..hi) and its
+    /// first bin; (0, lo) when lo..hi is empty of counts.
+    fn mode_best(&self, lo: usize, hi: usize) -> (u64, usize) {
+        let half = (0.5 / BIN_DB) as usize;
+        // Sliding window sum over [i-half, i+half] restricted to lo..hi; the
+        // first bin with the largest sum wins. Bins go a block at a time. A
+        // block's windows lie within it and its neighbours, whose coarse
+        // counts bound their sums: the block with the largest bound is
+        // searched first, and then only blocks whose bound could beat (or,
+        // before the best bin, tie) the best sum so far.
+        let w_lo = |i: usize| i.saturating_sub(half).max(lo);
+        let w_hi = |i: usize| (i + half + 1).min(hi);
+        let last_block = self.blocks.len() - 1;
+        let bound = |b: usize| -> u64 {
+            let (i, end) = ((b * BLOCK).max(lo), ((b + 1) * BLOCK).min(hi));
+            let (b0, b1) = (
+                i.saturating_sub(half) / BLOCK,
+                ((end - 1 + half) / BLOCK).min(last_block),
+            );
+            self.blocks[b0..=b1].iter().sum()
+        };
+        let counts = &self.counts[..hi];
+        let search = |b: usize, best: &mut (u64, usize)| {
+            let (i, end) = ((b * BLOCK).max(lo), ((b + 1) * BLOCK).min(hi));
+            let mut run: u64 = counts[w_lo(i)..w_hi(i)].iter().sum();
+            if run > best.0 || (run == best.0 && i < best.1) {
+                *best = (run, i);
+            }
+            for j in i + 1..end {
+                if j + half < hi {
+                    run += counts[j + half];
+                }
+                if j > lo + half {
+                    run -= counts[j - half - 1];
+                }
+                if run > best.0 || (run == best.0 && j < best.1) {
+                    *best = (run, j);
+                }
+            }
+        };
+        let (first, last) = (lo / BLOCK, (hi - 1) / BLOCK);
+        let top = (first..=last)
+            .rev()
+            .max_by_key(|&b| bound(b))
+            .unwrap_or(first);
+        // A zero sum at lo, which later bins tie but do not beat.
+        let mut best = (0u64, lo);
+        search(top, &mut best);
+        for b in first..=last {
+            if b == top {
+                continue;
+            }
+            let u = bound(b);
+            if u > best.0 || (u == best.0 && (b * BLOCK).max(lo) < best.1) {
+                search(b, &mut best);
+            }
+        }
+        best
+    }
+
     /// IEEE 181 state levels; the range's ends are the 0.2 % and 99.8 %
     /// quantiles so single noise spikes do not move the split.
     pub fn levels(&self) -> Option<StateLevels> {
@@ -200,8 +388,138 @@ impl LevelHistogram {
 mod tests {
     use super::*;
 
+    /// Pseudo-random amplitudes spread over `decades` decades below `top`.
+    fn amplitudes(seed: &mut u64, count: usize, top: f64, decades: f64) -> Vec<f64> {
+        (0..count)
+            .map(|_| {
+                *seed = seed.wrapping_mul(6_364_136_223_846_793_005).wrapping_add(1);
+                let u = (*seed >> 11) as f64 / (1u64 << 53) as f64;
+                top * 10f64.powf(-decades * u)
+            })
+            .collect()
+    }
+
     #[test]
-    fn downward_quantile_equals_the_upward_scan() {
+    fn table_bins_equal_the_logarithm_bins() {
+        // Reference: `bin_by_log`, the formula the histogram has always used.
+        // Every bin edge is checked from 40 ulps below to 40 above, every
+        // cell's first and last value, and random amplitudes over 300 dB.
+        let t = bin_table();
+        let n = t.n;
+        let check = |a: f64| assert_eq!(t.bin(a), bin_by_log(a, n), "amplitude {a:e}");
+        for &e in &t.edges[1..n] {
+            let b = e.to_bits();
+            for k in b - 40..=b + 40 {
+                check(f64::from_bits(k));
+            }
+        }
+        for key in t.key_lo..t.key_hi {
+            check(f64::from_bits(key << CELL_SHIFT));
+            check(f64::from_bits(((key + 1) << CELL_SHIFT) - 1));
+        }
+        let mut seed = 11u64;
+        for a in amplitudes(&mut seed, 200_000, 1e5, 30.0) {
+            check(a);
+        }
+        for a in [
+            0.0,
+            -0.0,
+            -1.0,
+            f64::NAN,
+            f64::INFINITY,
+            f64::MIN_POSITIVE,
+            1e-310,
+            f64::MAX,
+            1e-10,
+            1.0,
+            10.0,
+        ] {
+            check(a);
+        }
+    }
+
+    /// The mode search as first written: one sliding window over every bin
+    /// of lo..hi (oracle for the block-skipping search).
+    fn mode_bin_scan(h: &LevelHistogram, lo: usize, hi: usize) -> (u64, usize) {
+        let half = (0.5 / BIN_DB) as usize;
+        let mut best = (0u64, lo);
+        let mut run: u64 = 0;
+        let w_lo = |i: usize| i.saturating_sub(half).max(lo);
+        let w_hi = |i: usize| (i + half + 1).min(hi);
+        for c in &h.counts[w_lo(lo)..w_hi(lo)] {
+            run += c;
+        }
+        for i in lo..hi {
+            if i > lo {
+                if i + half < hi {
+                    run += h.counts[i + half];
+                }
+                if i > half && i - half > lo {
+                    run -= h.counts[i - half - 1];
+                }
+            }
+            if run > best.0 {
+                best = (run, i);
+            }
+        }
+        best
+    }
+
+    #[test]
+    fn block_skipping_mode_equals_the_full_scan() {
+        // Two-state mixtures (noise around a low level, a plateau, sparse
+        // transitions), plus flat and single-bin histograms; every range
+        // end near and away from block boundaries.
+        let mut seed = 5u64;
+        for trial in 0..30 {
+            let mut h = LevelHistogram::new();
+            let low = 1e-4 * (1.0 + trial as f64);
+            for a in amplitudes(&mut seed, 3000 + 500 * trial, low, 0.5) {
+                h.add(a);
+            }
+            for a in amplitudes(&mut seed, 2000, 0.3, 0.02 * (1 + trial % 3) as f64) {
+                h.add(a);
+            }
+            for a in amplitudes(&mut seed, 100 * (trial % 4), 0.3, 4.0) {
+                h.add(a);
+            }
+            if trial % 7 == 0 {
+                h.clear();
+                for _ in 0..50 {
+                    h.add(0.01);
+                }
+            }
+            let n = h.counts.len();
+            let (f, l) = (h.first.min(n - 1), h.last);
+            let ends = [
+                0,
+                f.saturating_sub(3),
+                f,
+                f + 31,
+                f + 64,
+                l / 2,
+                l,
+                l + 1,
+                l + 40,
+                n,
+            ];
+            for &lo in &ends {
+                for &hi in &ends {
+                    if lo < hi && hi <= n {
+                        // The level follows from this bin alone.
+                        assert_eq!(
+                            h.mode_best(lo, hi),
+                            mode_bin_scan(&h, lo, hi),
+                            "trial {trial} {lo}..{hi}"
+                        );
+                    }
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn quantiles_equal_the_cumulative_scan() {
         // Slow obvious reference: the cumulative scan from the lowest bin,
         // on histograms of varied shape (pseudo-random amplitudes over
         // 120 dB, some in one bin), at the quantiles the levels use and more.
@@ -219,13 +537,21 @@ mod tests {
                 };
                 h.add(a);
             }
+            // The plain cumulative scan from bin 0.
+            let scan = |t: u64| {
+                let mut acc = 0;
+                for (i, &c) in h.counts.iter().enumerate() {
+                    acc += c;
+                    if acc >= t {
+                        return i;
+                    }
+                }
+                h.counts.len() - 1
+            };
             for q in [0.002, 0.1, 0.5, 0.51, 0.9, 0.998, 1.0] {
                 let t = (q * h.total as f64).ceil().max(1.0) as u64;
-                assert_eq!(
-                    h.quantile_bin(q),
-                    h.quantile_bin_upward(t),
-                    "trial {trial} q {q}"
-                );
+                assert_eq!(h.quantile_bin(q), scan(t), "trial {trial} q {q}");
+                assert_eq!(h.quantile_bin_upward(t), scan(t), "trial {trial} q {q}");
             }
         }
     }

@@ -41,6 +41,11 @@ impl Segmenter {
         self.on
     }
 
+    /// Off with no mark held: only a rise can change the state.
+    pub fn is_idle(&self) -> bool {
+        !self.on && self.held.is_none()
+    }
+
     /// Index where the current mark began (if on), or the held mark's start.
     pub fn open_start(&self) -> Option<u64> {
         match (self.held, self.on) {
