@@ -335,9 +335,9 @@ pub fn occupancy_crossing<E: Env + ?Sized>(
         occ += part(i, a, s1, env.at(i), env.at(i + 1));
         i += 1;
     }
-    if i + 1 <= end {
+    if i < end {
         let mut e0 = env.at(i);
-        while i + 1 <= end {
+        while i < end {
             let e1 = env.at(i + 1);
             let v1 = e0 + (e1 - e0);
             occ += match (before(e0), before(v1)) {
