@@ -171,7 +171,7 @@ type Kernel = fn(&[f32], &[f32], &[f32], &mut Vec<f32>);
 
 #[inline(always)]
 fn halfband_lanes(c: &[f32], even: &[f32], odd: &[f32], out: &mut Vec<f32>) {
-    assert!(even.len() % LANES == 0 && odd.len() + 1 >= even.len() + c.len());
+    assert!(even.len().is_multiple_of(LANES) && odd.len() + 1 >= even.len() + c.len());
     for (b, e) in even.chunks_exact(LANES).enumerate() {
         let j = b * LANES;
         let mut acc = [0f32; LANES];
@@ -199,7 +199,7 @@ fn halfband_plain(c: &[f32], even: &[f32], odd: &[f32], out: &mut Vec<f32>) {
 unsafe fn halfband_avx2(c: &[f32], even: &[f32], odd: &[f32], out: &mut Vec<f32>) {
     use std::arch::x86_64::*;
     let n = even.len();
-    assert!(n % LANES == 0 && odd.len() + 1 >= n + c.len());
+    assert!(n.is_multiple_of(LANES) && odd.len() + 1 >= n + c.len());
     out.reserve(n);
     let half = _mm256_set1_ps(0.5);
     let (ep, op) = (even.as_ptr(), odd.as_ptr());
