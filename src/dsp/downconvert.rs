@@ -132,6 +132,15 @@ impl Band {
     }
 }
 
+/// Index `i` of an `len`-point DFT as a signed offset (-len/2 .. len/2).
+fn signed_offset(i: usize, len: usize) -> i64 {
+    if i < len / 2 {
+        i as i64
+    } else {
+        i as i64 - len as i64
+    }
+}
+
 /// Block sizes for a sample rate: FFT length about 85 ms, decimation to about
 /// 10-16 kHz (a power of two), filter length a quarter of the FFT.
 pub fn plan_sizes(fs: u32) -> (usize, usize, usize) {
@@ -228,11 +237,7 @@ impl Downconverter {
         let ffft = planner.plan_fft_forward(n);
         let mut des: Vec<Complex64> = (0..n)
             .map(|i| {
-                let b = if i < n / 2 {
-                    i as i64
-                } else {
-                    i as i64 - n as i64
-                };
+                let b = signed_offset(i, n);
                 let k = k0 as i64 + b;
                 if k <= 0 || k >= (n / 2) as i64 {
                     Complex::new(0.0, 0.0)
@@ -253,11 +258,7 @@ impl Downconverter {
         let mut h = vec![Complex32::new(0.0, 0.0); nd];
         let mut nb = 0.0;
         for (j, hj) in h.iter_mut().enumerate() {
-            let b = if j < nd / 2 {
-                j as i64
-            } else {
-                j as i64 - nd as i64
-            };
+            let b = signed_offset(j, nd);
             let k = k0 as i64 + b;
             if k <= 0 || k >= (n / 2) as i64 {
                 continue;
@@ -269,11 +270,7 @@ impl Downconverter {
         let peak = h.iter().map(|v| v.norm()).fold(0.0f32, f32::max);
         let live: Vec<(u32, u32)> = (0..nd)
             .filter_map(|j| {
-                let b = if j < nd / 2 {
-                    j as i64
-                } else {
-                    j as i64 - nd as i64
-                };
+                let b = signed_offset(j, nd);
                 let k = k0 as i64 + b;
                 (k > 0 && k < (n / 2) as i64 && h[j].norm() > 1e-7 * peak)
                     .then_some((j as u32, k as u32))
