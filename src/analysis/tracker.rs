@@ -957,7 +957,6 @@ mod gap_tests {
         }
         assert_eq!(fast.up_count, slow.up_count);
         assert_eq!(fast.up_power, slow.up_power);
-        assert_eq!(fast.up_count, slow.up_count);
         assert_eq!(fast.sum_dev, slow.sum_dev);
         assert_eq!(fast.coherent, slow.coherent);
         assert_eq!(fast.block, slow.block);

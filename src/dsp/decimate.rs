@@ -169,8 +169,7 @@ impl Stage {
 /// out[j] = even[j]/2 + sum_t c[t] odd[j + t].
 type Kernel = fn(&[f32], &[f32], &[f32], &mut Vec<f32>);
 
-#[inline(always)]
-fn halfband_lanes(c: &[f32], even: &[f32], odd: &[f32], out: &mut Vec<f32>) {
+fn halfband_plain(c: &[f32], even: &[f32], odd: &[f32], out: &mut Vec<f32>) {
     assert!(even.len().is_multiple_of(LANES) && odd.len() + 1 >= even.len() + c.len());
     for (b, e) in even.chunks_exact(LANES).enumerate() {
         let j = b * LANES;
@@ -186,10 +185,6 @@ fn halfband_lanes(c: &[f32], even: &[f32], odd: &[f32], out: &mut Vec<f32>) {
         }
         out.extend_from_slice(&acc);
     }
-}
-
-fn halfband_plain(c: &[f32], even: &[f32], odd: &[f32], out: &mut Vec<f32>) {
-    halfband_lanes(c, even, odd, out)
 }
 
 /// The same sums with AVX2 fused multiply-adds, four vectors of outputs

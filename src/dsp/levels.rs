@@ -213,13 +213,7 @@ impl LevelHistogram {
 
     #[inline]
     pub fn add(&mut self, amplitude: f64) {
-        let i = self.table.bin(amplitude);
-        self.counts[i] += 1;
-        self.blocks[i / BLOCK] += 1;
-        self.sums[i] += amplitude.max(0.0);
-        self.total += 1;
-        self.first = self.first.min(i);
-        self.last = self.last.max(i);
+        self.add_slice(std::slice::from_ref(&amplitude));
     }
 
     fn bin_amp(i: usize) -> f64 {
