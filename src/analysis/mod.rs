@@ -139,9 +139,13 @@ pub fn analyze_file(path: &Path, opt: &Options) -> Result<Report> {
     let mut src = WavSource::open(path)?;
     let mut mono = Vec::with_capacity(BLOCK_FRAMES);
     while src.read_frames(&mut buf, BLOCK_FRAMES)? > 0 {
-        mono.clear();
-        mono.extend(buf.iter().skip(channel).step_by(nch));
-        set.push(&mono);
+        if nch == 1 {
+            set.push(&buf);
+        } else {
+            mono.clear();
+            mono.extend(buf.iter().skip(channel).step_by(nch));
+            set.push(&mono);
+        }
     }
     set.finish();
     let (mut rep, side) = set.reports(input, info.sample_rate_hz);

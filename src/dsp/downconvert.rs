@@ -160,6 +160,10 @@ fn plan_sizes_for(fs: u32, block_s: f64) -> (usize, usize, usize) {
     (n, d, m)
 }
 
+/// Output samples per exactly computed mixing phase (the rotation between
+/// is tabulated).
+const ROT_CHUNK: usize = 64;
+
 /// Room left above the band for the design window's smearing of its
 /// roll-off, Hz, when choosing the front-end decimation.
 const FRONT_MARGIN_HZ: f64 = 400.0;
@@ -183,6 +187,9 @@ pub struct Downconverter {
     hop: usize,
     k0: usize,
     residual_hz: f64,
+    /// exp(-j 2 pi residual_hz d m / fs) for m = 0..ROT_CHUNK: the residual
+    /// offset's rotation within one chunk of output samples.
+    turns: Vec<Complex64>,
     h: Vec<Complex32>,
     fwd: Arc<dyn RealToComplex<f32>>,
     inv: Arc<dyn Fft<f32>>,
@@ -290,6 +297,9 @@ impl Downconverter {
             hop,
             k0,
             residual_hz,
+            turns: (0..ROT_CHUNK)
+                .map(|m| Complex64::from_polar(1.0, -2.0 * PI * residual_hz * (m * d) as f64 / fsf))
+                .collect(),
             h,
             buf: vec![0.0; n],
             work: fwd.make_input_vec(),
@@ -439,19 +449,20 @@ impl Downconverter {
         let count = self.hop / self.d;
         out.reserve(count);
         // Remove the block-start mixing phase and the residual offset from
-        // the bin grid. The phase is linear in mi: the factor is advanced by
-        // a fixed rotation and recomputed exactly every 64 samples.
+        // the bin grid. The phase is linear in mi: exact at the start of
+        // every chunk, then the chunk's start factor times a tabulated
+        // rotation (no serial chain of products, so the loop vectorizes).
         let phase = |mi: usize| {
             let n_abs = (base - hd + (mi * self.d) as i128) as f64;
             -2.0 * PI * (rot + self.residual_hz * n_abs / self.fs)
         };
-        let turn =
-            Complex64::from_polar(1.0, -2.0 * PI * self.residual_hz * self.d as f64 / self.fs);
-        for (ci, chunk) in self.narrow[first..first + count].chunks(64).enumerate() {
-            let mut c = Complex64::from_polar(scale, phase(first + 64 * ci));
-            out.extend(chunk.iter().map(|v| {
-                let z = Complex64::new(v.re as f64, v.im as f64) * c;
-                c *= turn;
+        for (ci, chunk) in self.narrow[first..first + count]
+            .chunks(ROT_CHUNK)
+            .enumerate()
+        {
+            let c = Complex64::from_polar(scale, phase(first + ROT_CHUNK * ci));
+            out.extend(chunk.iter().zip(&self.turns).map(|(v, t)| {
+                let z = Complex64::new(v.re as f64, v.im as f64) * (c * t);
                 Complex32::new(z.re as f32, z.im as f32)
             }));
         }
