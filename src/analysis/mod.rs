@@ -138,19 +138,24 @@ pub fn analyze_file(path: &Path, opt: &Options) -> Result<Report> {
     let mut set = tones::ToneSet::new(info.sample_rate_hz, &cand, &others);
     let mut src = WavSource::open(path)?;
     let mut mono = Vec::with_capacity(BLOCK_FRAMES);
+    let gram = s.spectrograms.get(channel);
+    let mut rider = SpectralRider::new(&info, cand.frequency_hz, gram, &set);
     while src.read_frames(&mut buf, BLOCK_FRAMES)? > 0 {
-        if nch == 1 {
-            set.push(&buf);
+        let x: &[f32] = if nch == 1 {
+            &buf
         } else {
             mono.clear();
             mono.extend(buf.iter().skip(channel).step_by(nch));
-            set.push(&mono);
-        }
+            &mono
+        };
+        set.push(x);
+        rider.push(x, &set, false);
     }
     set.finish();
+    rider.push(&[], &set, true);
     let (mut rep, side) = set.reports(input, info.sample_rate_hz);
     if rep.summary.keyed_signal_found {
-        add_spectral(&mut rep, path, channel, opt, s.spectrograms.get(channel))?;
+        add_spectral(&mut rep, path, channel, opt, gram, Some(rider.stream))?;
     }
     if let Some(st) = opt.sidetone_hz {
         tones::sidetone(&mut rep, &side, st, opt, path, channel)?;
@@ -256,13 +261,84 @@ pub fn mean_edges_ms(tr: &ToneTracker) -> (Option<f64>, Option<f64>) {
     (one(r, true), one(f, false))
 }
 
-/// Third pass: spectra, bandwidths, clicks and the picture data.
+/// The spectral pass riding along with the measurement pass: the main
+/// tracker's decimated input (or its own decimation of the channel when the
+/// factors differ), its elements as they are measured, and the horizon
+/// before which no further element can start.
+struct SpectralRider {
+    stream: spectral::SpectralStream,
+    /// Own decimator when the tracker's front end decimates differently.
+    own: Option<crate::dsp::decimate::Decimator>,
+    dec: Vec<f32>,
+    seen: usize,
+    pushed: u64,
+    fs_in: f64,
+}
+
+impl SpectralRider {
+    fn new(
+        info: &crate::input::StreamInfo,
+        tone_hz: f64,
+        gram: Option<&crate::dsp::survey::SurveyGram>,
+        set: &tones::ToneSet,
+    ) -> SpectralRider {
+        let stream = spectral::SpectralStream::new(
+            info.sample_rate_hz,
+            info.frames.unwrap_or(0),
+            tone_hz,
+            gram,
+            None,
+        );
+        let shared = set.main_tracker().downconverter().decimation_front() == stream.factor();
+        SpectralRider {
+            own: (!shared).then(|| crate::dsp::decimate::Decimator::new(stream.factor())),
+            stream,
+            dec: Vec::new(),
+            seen: 0,
+            pushed: 0,
+            fs_in: info.sample_rate_hz as f64,
+        }
+    }
+
+    /// After the trackers took `x` (or finished, `last`).
+    fn push(&mut self, x: &[f32], set: &tones::ToneSet, last: bool) {
+        let tr = set.main_tracker();
+        self.stream.push_raw(x);
+        self.pushed += x.len() as u64;
+        match self.own.as_mut() {
+            Some(d) => {
+                self.dec.clear();
+                if last {
+                    d.flush(&mut self.dec);
+                } else {
+                    d.push(x, &mut self.dec);
+                }
+                self.stream.push_decimated(&self.dec);
+            }
+            None => self.stream.push_decimated(tr.downconverter().last_front()),
+        }
+        for e in &tr.elements()[self.seen..] {
+            self.stream
+                .add_element(e.start_s, e.start_s + (e.end_s - e.start_s));
+        }
+        self.seen = tr.elements().len();
+        if !last {
+            self.stream
+                .set_horizon_s(self.pushed as f64 / self.fs_in - spectral::ELEMENT_LAG_S);
+        }
+    }
+}
+
+/// Third pass: spectra, bandwidths, clicks and the picture data. `ridden`:
+/// the pass as it rode along with the measurement, used when it matches
+/// what a pass of its own would do (else the recording is read again).
 fn add_spectral(
     rep: &mut Report,
     path: &Path,
     channel: usize,
     opt: &Options,
     gram: Option<&crate::dsp::survey::SurveyGram>,
+    ridden: Option<spectral::SpectralStream>,
 ) -> Result<()> {
     let s = &rep.summary;
     let (Some(tone), Some(level)) = (s.tone_hz, s.level_dbfs) else {
@@ -289,7 +365,10 @@ fn add_spectral(
             .collect::<Vec<f64>>(),
         gram,
     };
-    let out = spectral::spectral_pass(&inp)?;
+    let out = match ridden {
+        Some(st) if st.matches(tone, &els) => st.finish(&inp),
+        _ => spectral::spectral_pass(&inp)?,
+    };
     rep.views.spectrum = out.spectrum;
     rep.views.noise = out.noise;
     rep.views.spectrogram = out.spectrogram;

@@ -136,6 +136,11 @@ impl ToneSet {
         }
     }
 
+    /// The main tone's tracker.
+    pub fn main_tracker(&self) -> &ToneTracker {
+        &self.trackers[0]
+    }
+
     /// Feeds one block of the analysed channel to every tracker.
     pub fn push(&mut self, mono: &[f32]) {
         if self.trackers.len() == 1 {

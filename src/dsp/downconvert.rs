@@ -326,6 +326,10 @@ impl Downconverter {
     pub fn out_rate_hz(&self) -> f64 {
         self.fs / self.d as f64
     }
+    /// Decimation factor of the front end alone.
+    pub fn decimation_front(&self) -> usize {
+        self.front.factor()
+    }
     /// Decimation factor.
     pub fn decimation(&self) -> usize {
         self.front.factor() * self.d
@@ -420,10 +424,25 @@ impl Downconverter {
         }
     }
 
-    /// Pushes silence so all real input has passed the filter.
+    /// Ends the input so all of it has passed the filter: the front end
+    /// holds the last sample (as `Decimator::flush`, so the front end's
+    /// output is the same as any other decimator's of the same input), then
+    /// silence follows through the transforms.
     pub fn flush(&mut self, out: &mut Vec<Complex32>) {
-        let z = vec![0.0f32; self.flush_len()];
-        self.push(&z, out);
+        let mut front_out = std::mem::take(&mut self.front_out);
+        front_out.clear();
+        self.front.flush(&mut front_out);
+        self.push_front(&front_out, out);
+        let z = vec![0.0f32; self.hop + self.m];
+        self.push_front(&z, out);
+        self.front_out = front_out;
+    }
+
+    /// The front end's output (the input decimated by its factor) for the
+    /// last `push` or `flush`: what another consumer of the same decimated
+    /// stream can take instead of decimating again.
+    pub fn last_front(&self) -> &[f32] {
+        &self.front_out
     }
 
     fn process_block(&mut self, out: &mut Vec<Complex32>) {
