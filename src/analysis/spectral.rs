@@ -649,8 +649,10 @@ impl SpectralStream {
         .min()
         .unwrap_or(end)
         .min(end);
-        if need > self.hist_start + self.keep as u64 {
-            let drop = (need - self.hist_start) as usize;
+        // Only once the dead stretch is half the buffer, so each sample is
+        // moved a bounded number of times however long the kept stretch.
+        let drop = need.saturating_sub(self.hist_start) as usize;
+        if drop > self.keep && 2 * drop >= self.hist.len() {
             self.hist.drain(..drop.min(self.hist.len()));
             self.hist_start += drop as u64;
         }
