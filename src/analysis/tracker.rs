@@ -302,6 +302,8 @@ pub struct EdgeAverage {
     pub half: usize,
     pub sum: Vec<f64>,
     pub count: Vec<u32>,
+    /// |z|^2 of the samples one `add` reads, from `p0` on (scratch).
+    power: Vec<f64>,
 }
 
 impl EdgeAverage {
@@ -310,19 +312,40 @@ impl EdgeAverage {
             half,
             sum: vec![0.0; 2 * half + 1],
             count: vec![0; 2 * half + 1],
+            power: Vec::new(),
         }
     }
     /// Adds |z|^2 around fractional index `t50` (linear interpolation).
+    /// Each sample's power is taken once, and the grid offset `k` counts in
+    /// f64 (exact): the same values and operations as `add_reference`.
     fn add(&mut self, z: &[Complex32], t50: f64) {
-        for (k, (s, c)) in self.sum.iter_mut().zip(self.count.iter_mut()).enumerate() {
-            let x = t50 + k as f64 - self.half as f64;
-            if x < 0.0 || x + 1.0 >= z.len() as f64 {
+        let (half, len) = (self.half as f64, z.len() as f64);
+        // Samples the grid can reach: x is within a rounding of t50 - half + k.
+        let p0 = ((t50 - half).max(0.0) as usize)
+            .saturating_sub(1)
+            .min(z.len());
+        let p1 = ((t50 + half + 3.0).max(0.0) as usize).min(z.len());
+        self.power.clear();
+        self.power
+            .extend(z[p0..p1].iter().map(|v| v.norm_sqr() as f64));
+        let p = &self.power[..];
+        let mut kf = 0.0f64;
+        for (s, c) in self.sum.iter_mut().zip(self.count.iter_mut()) {
+            let x = t50 + kf - half;
+            kf += 1.0;
+            if x < 0.0 || x + 1.0 >= len {
                 continue;
             }
             // x >= 0: truncation is the floor (without a libm call).
-            let i = x as i64 as usize;
+            let i = x as i64;
             let f = x - i as f64;
-            *s += (1.0 - f) * z[i].norm_sqr() as f64 + f * z[i + 1].norm_sqr() as f64;
+            let i = i as usize;
+            // Outside `power` only for a t50 that is not finite.
+            let (a, b) = match i.checked_sub(p0).filter(|&j| j + 1 < p.len()) {
+                Some(j) => (p[j], p[j + 1]),
+                None => (z[i].norm_sqr() as f64, z[i + 1].norm_sqr() as f64),
+            };
+            *s += (1.0 - f) * a + f * b;
             *c += 1;
         }
     }
@@ -342,6 +365,31 @@ impl EdgeAverage {
     }
 }
 
+/// The moving sum `run` carried through `new` (each sample in, the one of
+/// `old` beside it out), each value appended to `sums`.
+fn moving_sums(
+    run: &mut Complex64,
+    new: &[Complex32],
+    old: &[Complex32],
+    sums: &mut Vec<Complex64>,
+) {
+    let c64 = |z: &Complex32| Complex64::new(z.re as f64, z.im as f64);
+    let mut r = *run;
+    sums.extend(new.iter().zip(old).map(|(z, o)| {
+        r += c64(z);
+        r -= c64(o);
+        r
+    }));
+    *run = r;
+}
+
+/// |s / w| of each moving sum, appended to `out`. The sqrt of the squared
+/// magnitude: hypot guards against overflow that baseband samples of at most
+/// full scale cannot reach.
+fn magnitudes(sums: &[Complex64], w: f64, out: &mut Vec<f64>) {
+    out.extend(sums.iter().map(|s| (s / w).norm_sqr().sqrt()));
+}
+
 /// Streaming tracker of one tone in one channel.
 pub struct ToneTracker {
     dc: Downconverter,
@@ -354,8 +402,9 @@ pub struct ToneTracker {
     zbase: u64,
     win: usize,
     run: Complex64,
-    /// The block's detection envelope (scratch).
+    /// The block's detection envelope and its moving sums (scratch).
     dnew: Vec<f64>,
+    sums: Vec<Complex64>,
     /// Detection envelope from absolute index `detphys` on; `det0` is the
     /// first index it has (u64::MAX until the first value).
     det: Vec<f32>,
@@ -391,6 +440,11 @@ pub struct ToneTracker {
     trace_points: usize,
 }
 
+/// Dead samples, as a multiple of the live ones, that make `compact` move
+/// the buffers (the live part is about `LOOKAHEAD_S` of baseband, so the
+/// buffers hold about 4 times that).
+const COMPACT_AT: usize = 3;
+
 /// Settled key-down used for hum: this far inside the 90 % points, s.
 const HUM_GUARD_S: f64 = 0.002;
 
@@ -423,6 +477,7 @@ impl ToneTracker {
             win,
             run: Complex64::new(0.0, 0.0),
             dnew: Vec::new(),
+            sums: Vec::new(),
             det: Vec::new(),
             detphys: 0,
             det0: u64::MAX,
@@ -570,30 +625,30 @@ impl ToneTracker {
         // The detection envelope of the block: a coherent moving average of
         // `w` samples (the sum runs on, in f64), one value per sample from
         // the w-th on. First the samples whose window is not yet full...
-        let mut dnew = std::mem::take(&mut self.dnew);
-        dnew.clear();
+        // The sums are one serial chain and are stored as they are; their
+        // magnitudes follow in a separate loop, which vectorizes.
+        let mut sums = std::mem::take(&mut self.sums);
+        sums.clear();
         let mut run = self.run;
         let c64 = |z: &Complex32| Complex64::new(z.re as f64, z.im as f64);
         let lead = (w.saturating_sub(start) as usize).min(zs.len());
         for (k, z) in zs[..lead].iter().enumerate() {
             run += c64(z);
             if start + k as u64 + 1 >= w {
-                dnew.push((run / w as f64).norm_sqr().sqrt());
+                sums.push(run);
             }
         }
         // ...then the steady state, where the sample `w` back leaves the sum.
         if lead < zs.len() {
             let old_from = (start + lead as u64 - w - self.zphys) as usize;
             let old = &self.zbuf[old_from..old_from + zs.len() - lead];
-            for (z, o) in zs[lead..].iter().zip(old) {
-                run += c64(z);
-                run -= c64(o);
-                // sqrt of the squared magnitude: hypot guards against overflow
-                // that baseband samples of at most full scale cannot reach.
-                dnew.push((run / w as f64).norm_sqr().sqrt());
-            }
+            moving_sums(&mut run, &zs[lead..], old, &mut sums);
         }
         self.run = run;
+        let mut dnew = std::mem::take(&mut self.dnew);
+        dnew.clear();
+        magnitudes(&sums, w as f64, &mut dnew);
+        self.sums = sums;
         // Absolute baseband index of the sample that completed dnew[0].
         let first_head = start + zs.len() as u64 - dnew.len() as u64;
         if self.det0 == u64::MAX && !dnew.is_empty() {
@@ -657,16 +712,19 @@ impl ToneTracker {
     }
 
     /// Drops the trimmed baseband and the segmented envelope from the
-    /// buffers' fronts once they are at least half of them (so each sample
-    /// is moved a bounded number of times).
+    /// buffers' fronts once they are `COMPACT_AT` times what is kept (so
+    /// each sample is moved 1 / `COMPACT_AT` times on average).
     fn compact(&mut self) {
         let dead = (self.zbase - self.zphys) as usize;
-        if dead > 0 && 2 * dead >= self.zbuf.len() {
+        if dead > 0 && dead >= COMPACT_AT * (self.zbuf.len() - dead) {
             self.zbuf.drain(..dead);
             self.zphys = self.zbase;
         }
         let dead = self.seg_q.saturating_sub(self.detphys) as usize;
-        if dead > 0 && 2 * dead >= self.det.len() && self.det0 != u64::MAX {
+        if dead > 0
+            && dead >= COMPACT_AT * self.det.len().saturating_sub(dead)
+            && self.det0 != u64::MAX
+        {
             let dead = dead.min(self.det.len());
             self.det.drain(..dead);
             self.detphys += dead as u64;
@@ -918,6 +976,88 @@ impl ToneTracker {
 mod gap_tests {
     use super::*;
     use std::collections::VecDeque;
+
+    /// `EdgeAverage::add` as first written; test oracle.
+    fn add_reference(a: &mut EdgeAverage, z: &[Complex32], t50: f64) {
+        for (k, (s, c)) in a.sum.iter_mut().zip(a.count.iter_mut()).enumerate() {
+            let x = t50 + k as f64 - a.half as f64;
+            if x < 0.0 || x + 1.0 >= z.len() as f64 {
+                continue;
+            }
+            let i = x as i64 as usize;
+            let f = x - i as f64;
+            *s += (1.0 - f) * z[i].norm_sqr() as f64 + f * z[i + 1].norm_sqr() as f64;
+            *c += 1;
+        }
+    }
+
+    #[test]
+    fn edge_average_equals_the_plain_sum() {
+        // Instants inside, near and past both ends of the samples, with
+        // fractions that round when the grid offset is added (large t50).
+        let z: Vec<Complex32> = (0..3000)
+            .map(|i| Complex32::new((i as f32 * 0.37).sin(), (i as f32 * 0.05).cos()))
+            .collect();
+        let (mut fast, mut slow) = (EdgeAverage::new(300), EdgeAverage::new(300));
+        let mut t = -400.3;
+        while t < 3500.0 {
+            for t50 in [t, t + 1e-9, t + 0.5, 2047.999_999_999, 1023.7 + 1e-12] {
+                fast.add(&z, t50);
+                add_reference(&mut slow, &z, t50);
+            }
+            t += 97.123_456_789;
+        }
+        for zs in [&z[..1], &z[..2], &z[..40]] {
+            fast.add(zs, 0.5);
+            add_reference(&mut slow, zs, 0.5);
+        }
+        assert_eq!(fast.count, slow.count);
+        assert_eq!(fast.sum, slow.sum);
+        // A t50 that is not a number reads as the old loop did.
+        fast.add(&z, f64::NAN);
+        add_reference(&mut slow, &z, f64::NAN);
+        let bits = |a: &EdgeAverage| a.sum.iter().map(|v| v.to_bits()).collect::<Vec<_>>();
+        assert_eq!(fast.count, slow.count);
+        assert_eq!(bits(&fast), bits(&slow));
+    }
+
+    #[test]
+    fn split_detection_loops_equal_the_one_loop() {
+        // Oracle: the detection envelope's steady-state loop as first
+        // written, sum and magnitude of each sample in one pass.
+        let mut seed = 5u64;
+        let mut z = || {
+            seed = seed.wrapping_mul(6_364_136_223_846_793_005).wrapping_add(1);
+            let u = (seed >> 40) as f32 / (1u32 << 24) as f32 - 0.5;
+            Complex32::new(u, 0.3 * u - 0.1)
+        };
+        let w = 25usize;
+        let zs: Vec<Complex32> = (0..5000).map(|_| z()).collect();
+        let mut run = zs[..w].iter().fold(Complex64::new(0.0, 0.0), |s, v| {
+            s + Complex64::new(v.re as f64, v.im as f64)
+        });
+        let (mut want, mut run0) = (Vec::new(), run);
+        for (zn, o) in zs[w..].iter().zip(&zs) {
+            run0 += Complex64::new(zn.re as f64, zn.im as f64);
+            run0 -= Complex64::new(o.re as f64, o.im as f64);
+            want.push((run0 / w as f64).norm_sqr().sqrt());
+        }
+        let (mut sums, mut got) = (Vec::new(), Vec::new());
+        // In uneven blocks, as the downconverter delivers them.
+        let mut k = w;
+        for step in [1, 7, 300, 1000, 5000].iter().cycle() {
+            if k >= zs.len() {
+                break;
+            }
+            let e = (k + step).min(zs.len());
+            sums.clear();
+            moving_sums(&mut run, &zs[k..e], &zs[k - w..e - w], &mut sums);
+            magnitudes(&sums, w as f64, &mut got);
+            k = e;
+        }
+        assert_eq!(run, run0);
+        assert_eq!(got, want);
+    }
 
     #[test]
     fn gap_delay_and_noise_runs_equal_sample_by_sample() {
