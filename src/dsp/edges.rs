@@ -202,8 +202,26 @@ impl<'a> LazyEnvelope<'a> {
         }
     }
 
-    /// Computes samples `a..b` into the cache.
+    /// Computes samples `a..b` into the cache: four lanes wide where the CPU
+    /// has AVX (the same additions in the same order, so the same values).
     fn fill(&self, a: usize, b: usize) {
+        #[cfg(target_arch = "x86_64")]
+        if std::arch::is_x86_feature_detected!("avx") {
+            // SAFETY: the CPU has AVX.
+            unsafe { self.fill_avx(a, b) };
+            return;
+        }
+        self.fill_any(a, b);
+    }
+
+    #[cfg(target_arch = "x86_64")]
+    #[target_feature(enable = "avx")]
+    fn fill_avx(&self, a: usize, b: usize) {
+        self.fill_any(a, b);
+    }
+
+    #[inline(always)]
+    fn fill_any(&self, a: usize, b: usize) {
         let (re, im, kernel) = (&self.re[..], &self.im[..], self.kernel);
         let h = kernel.len() / 2;
         let n = re.len();
