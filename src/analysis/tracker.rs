@@ -302,8 +302,10 @@ pub struct EdgeAverage {
     pub half: usize,
     pub sum: Vec<f64>,
     pub count: Vec<u32>,
-    /// |z|^2 of the samples one `add` reads, from `p0` on (scratch).
+    /// |z|^2 of the samples one `add` reads, and the grid points'
+    /// fractions (scratch).
     power: Vec<f64>,
+    frac: Vec<f64>,
 }
 
 impl EdgeAverage {
@@ -313,42 +315,92 @@ impl EdgeAverage {
             sum: vec![0.0; 2 * half + 1],
             count: vec![0; 2 * half + 1],
             power: Vec::new(),
+            frac: Vec::new(),
         }
     }
     /// Adds |z|^2 around fractional index `t50` (linear interpolation).
-    /// Each sample's power is taken once, and the grid offset `k` counts in
-    /// f64 (exact): the same values and operations as `add_reference`.
+    /// The same values and operations as `add_reference`, in two
+    /// vectorizable passes where the grid points fall on successive samples
+    /// (always, but for rounding at a power of two).
     fn add(&mut self, z: &[Complex32], t50: f64) {
-        let (half, len) = (self.half as f64, z.len() as f64);
-        // Samples the grid can reach: x is within a rounding of t50 - half + k.
-        let p0 = ((t50 - half).max(0.0) as usize)
-            .saturating_sub(1)
-            .min(z.len());
-        let p1 = ((t50 + half + 3.0).max(0.0) as usize).min(z.len());
-        self.power.clear();
-        self.power
-            .extend(z[p0..p1].iter().map(|v| v.norm_sqr() as f64));
-        let p = &self.power[..];
-        let mut kf = 0.0f64;
-        for (s, c) in self.sum.iter_mut().zip(self.count.iter_mut()) {
-            let x = t50 + kf - half;
-            kf += 1.0;
-            if x < 0.0 || x + 1.0 >= len {
+        if !self.add_successive(z, t50) {
+            self.add_each(z, t50);
+        }
+    }
+
+    /// `add` one grid point at a time.
+    fn add_each(&mut self, z: &[Complex32], t50: f64) {
+        for (k, (s, c)) in self.sum.iter_mut().zip(self.count.iter_mut()).enumerate() {
+            let x = t50 + k as f64 - self.half as f64;
+            if x < 0.0 || x + 1.0 >= z.len() as f64 {
                 continue;
             }
             // x >= 0: truncation is the floor (without a libm call).
-            let i = x as i64;
+            let i = x as i64 as usize;
             let f = x - i as f64;
-            let i = i as usize;
-            // Outside `power` only for a t50 that is not finite.
-            let (a, b) = match i.checked_sub(p0).filter(|&j| j + 1 < p.len()) {
-                Some(j) => (p[j], p[j + 1]),
-                None => (z[i].norm_sqr() as f64, z[i + 1].norm_sqr() as f64),
-            };
-            *s += (1.0 - f) * a + f * b;
+            *s += (1.0 - f) * z[i].norm_sqr() as f64 + f * z[i + 1].norm_sqr() as f64;
             *c += 1;
         }
     }
+
+    /// `add` when the grid points inside the samples, x_k = t50 + k - half,
+    /// have floors i0, i0 + 1, ... (then the fraction x_k - floor(x_k) is
+    /// worked out as `add_each` does); false, with nothing added, otherwise.
+    fn add_successive(&mut self, z: &[Complex32], t50: f64) -> bool {
+        let nk = self.sum.len();
+        let (half, len) = (self.half as f64, z.len() as f64);
+        if !t50.is_finite() || nk >= i32::MAX as usize || z.len() >= i32::MAX as usize {
+            return false;
+        }
+        // k as i32 as f64 is k as f64 (k < 2^31), and converts lane-wise.
+        let x_at = |k: usize| t50 + k as i32 as f64 - half;
+        // x_k is monotone in k (each rounding is), so the points inside the
+        // samples, 0 <= x_k and x_k + 1 < len, are one run k_lo..k_hi.
+        let first = |inside: &dyn Fn(usize) -> bool| {
+            let (mut a, mut b) = (0, nk);
+            while a < b {
+                let m = (a + b) / 2;
+                if inside(m) {
+                    b = m;
+                } else {
+                    a = m + 1;
+                }
+            }
+            a
+        };
+        let k_lo = first(&|k| x_at(k) >= 0.0);
+        let k_hi = first(&|k| x_at(k) + 1.0 >= len);
+        if k_lo >= k_hi {
+            return true;
+        }
+        let m = k_hi - k_lo;
+        let i_lo = x_at(k_lo) as i64 as usize;
+        // The fractions, if every floor is the expected one: x_k - i is
+        // exact for 0 <= x_k - i < 1 (Sterbenz), so that test is the floor's.
+        self.frac.clear();
+        self.frac.extend((k_lo..k_hi).map(|k| {
+            let i = (i_lo + (k - k_lo)) as i32 as f64;
+            x_at(k) - i
+        }));
+        if !self.frac.iter().all(|&f| (0.0..1.0).contains(&f)) {
+            return false;
+        }
+        self.power.clear();
+        self.power
+            .extend(z[i_lo..i_lo + m + 1].iter().map(|v| v.norm_sqr() as f64));
+        let p = &self.power[..];
+        for (((s, c), &f), (&a, &b)) in self.sum[k_lo..k_hi]
+            .iter_mut()
+            .zip(&mut self.count[k_lo..k_hi])
+            .zip(&self.frac)
+            .zip(p.iter().zip(&p[1..]))
+        {
+            *s += (1.0 - f) * a + f * b;
+            *c += 1;
+        }
+        true
+    }
+
     /// Mean envelope with the noise power removed.
     pub fn envelope(&self, noise_power: f64) -> Vec<f64> {
         self.sum
@@ -478,7 +530,6 @@ pub struct ToneTracker {
     gap: GapDelay,
     last_down: Option<u64>,
     noise: NoiseAcc,
-    out: Vec<Complex32>,
     elements: Vec<TrackedElement>,
     unmeasured: usize,
     cut_open: bool,
@@ -555,7 +606,6 @@ impl ToneTracker {
             hum: HumAcc::new(fs_d),
             input_samples: 0,
             keep_traces: cfg.keep_traces,
-            out: Vec::new(),
             elements: Vec::new(),
             unmeasured: 0,
             cut_open: false,
@@ -636,21 +686,22 @@ impl ToneTracker {
         self.unmeasured
     }
 
-    /// Feeds one channel's samples.
+    /// Feeds one channel's samples. The baseband goes straight onto the
+    /// end of the buffer.
     pub fn push(&mut self, samples: &[f32]) {
         self.input_samples += samples.len() as u64;
-        let mut out = std::mem::take(&mut self.out);
-        out.clear();
-        self.dc.push(samples, &mut out);
-        self.ingest(&out, false);
-        self.out = out;
+        self.compact();
+        let from = self.zbuf.len();
+        self.dc.push(samples, &mut self.zbuf);
+        self.ingest(from, false);
     }
 
     /// Ends the stream: flushes the filter and measures what is left.
     pub fn finish(&mut self) {
-        let mut out = Vec::new();
-        self.dc.flush(&mut out);
-        self.ingest(&out, true);
+        self.compact();
+        let from = self.zbuf.len();
+        self.dc.flush(&mut self.zbuf);
+        self.ingest(from, true);
         // An element whose 50 % instant falls at the very start or end of
         // the recording was cut by it (an abrupt start or end reads as an
         // edge right there).
@@ -669,12 +720,13 @@ impl ToneTracker {
         }
     }
 
-    fn ingest(&mut self, zs: &[Complex32], last: bool) {
-        self.compact();
+    /// Takes in the new baseband, `zbuf[from..]`.
+    fn ingest(&mut self, from: usize, last: bool) {
         let w = self.win as u64;
+        let zs = &self.zbuf[from..];
+        let new = zs.len();
         // Absolute index of zs[0].
-        let start = self.zphys + self.zbuf.len() as u64;
-        self.zbuf.extend_from_slice(zs);
+        let start = self.zphys + from as u64;
         // The detection envelope of the block: a coherent moving average of
         // `w` samples (the sum runs on, in f64), one value per sample from
         // the w-th on. First the samples whose window is not yet full...
@@ -703,7 +755,7 @@ impl ToneTracker {
         magnitudes(&sums, w as f64, &mut dnew);
         self.sums = sums;
         // Absolute baseband index of the sample that completed dnew[0].
-        let first_head = start + zs.len() as u64 - dnew.len() as u64;
+        let first_head = start + new as u64 - dnew.len() as u64;
         if self.det0 == u64::MAX && !dnew.is_empty() {
             // det index = head - (w-1)/2
             self.det0 = first_head - (w - 1) / 2;
@@ -739,7 +791,7 @@ impl ToneTracker {
             k = end;
         }
         if !last {
-            self.trim(start + zs.len() as u64);
+            self.trim(start + new as u64);
         }
         self.dnew = dnew;
         if last {
@@ -1054,7 +1106,15 @@ mod gap_tests {
         let (mut fast, mut slow) = (EdgeAverage::new(300), EdgeAverage::new(300));
         let mut t = -400.3;
         while t < 3500.0 {
-            for t50 in [t, t + 1e-9, t + 0.5, 2047.999_999_999, 1023.7 + 1e-12] {
+            for t50 in [
+                t,
+                t + 1e-9,
+                t + 0.5,
+                2047.999_999_999,
+                1023.7 + 1e-12,
+                2047.999_999_999_999_8,
+                1023.999_999_999_999_9,
+            ] {
                 fast.add(&z, t50);
                 add_reference(&mut slow, &z, t50);
             }
@@ -1066,6 +1126,10 @@ mod gap_tests {
         }
         assert_eq!(fast.count, slow.count);
         assert_eq!(fast.sum, slow.sum);
+        // Where t50 + k rounds up to the next integer, the two-pass path
+        // declines and the one-point-at-a-time loop runs.
+        assert!(!EdgeAverage::new(300).add_successive(&z, 2047.999_999_999_999_8));
+        assert!(EdgeAverage::new(300).add_successive(&z, 1500.25));
         // A t50 that is not a number reads as the old loop did.
         fast.add(&z, f64::NAN);
         add_reference(&mut slow, &z, f64::NAN);
