@@ -1110,10 +1110,10 @@ mod gap_tests {
                 t,
                 t + 1e-9,
                 t + 0.5,
-                2047.999_999_999,
+                2_047.999_999_999,
                 1023.7 + 1e-12,
-                2047.999_999_999_999_8,
-                1023.999_999_999_999_9,
+                2_047.999_999_999_999_8,
+                1_023.999_999_999_999_9,
             ] {
                 fast.add(&z, t50);
                 add_reference(&mut slow, &z, t50);
@@ -1128,7 +1128,7 @@ mod gap_tests {
         assert_eq!(fast.sum, slow.sum);
         // Where t50 + k rounds up to the next integer, the two-pass path
         // declines and the one-point-at-a-time loop runs.
-        assert!(!EdgeAverage::new(300).add_successive(&z, 2047.999_999_999_999_8));
+        assert!(!EdgeAverage::new(300).add_successive(&z, 2_047.999_999_999_999_8));
         assert!(EdgeAverage::new(300).add_successive(&z, 1500.25));
         // A t50 that is not a number reads as the old loop did.
         fast.add(&z, f64::NAN);
