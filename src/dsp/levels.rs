@@ -122,21 +122,56 @@ impl BinTable {
         }
     }
 
+    /// The fields a bin lookup reads, as values: a loop that copies them out
+    /// keeps them at hand instead of reloading them after every store.
+    #[inline]
+    fn view(&self) -> BinView<'_> {
+        BinView {
+            cells: &self.cells,
+            edges: &self.edges,
+            key_lo: self.key_lo,
+            span: self.key_hi - self.key_lo,
+            top: self.n - 1,
+        }
+    }
+}
+
+#[derive(Clone, Copy)]
+struct BinView<'a> {
+    cells: &'a [u16],
+    edges: &'a [f64],
+    key_lo: u64,
+    span: u64,
+    top: usize,
+}
+
+impl BinView<'_> {
+    /// An amplitude whose key is one of the cells' is positive and finite
+    /// (a negative amplitude's or a NaN's key lies above them, zero's below),
+    /// so that case takes one range test; the rest go to `outside`.
     #[inline]
     fn bin(&self, amplitude: f64) -> usize {
+        let d = (amplitude.to_bits() >> CELL_SHIFT).wrapping_sub(self.key_lo);
+        if d < self.span {
+            let i = self.cells[d as usize] as usize;
+            i + (amplitude >= self.edges[i + 1]) as usize
+        } else {
+            self.outside(amplitude)
+        }
+    }
+
+    #[inline(never)]
+    fn outside(&self, amplitude: f64) -> usize {
         // Zero, negative and NaN amplitudes go to bin 0, as in `bin_by_log`.
         if amplitude.partial_cmp(&0.0) != Some(std::cmp::Ordering::Greater) {
             return 0;
         }
         let key = amplitude.to_bits() >> CELL_SHIFT;
         if key < self.key_lo {
-            return 0;
+            0
+        } else {
+            self.top
         }
-        if key >= self.key_hi {
-            return self.n - 1;
-        }
-        let i = self.cells[(key - self.key_lo) as usize] as usize;
-        i + (amplitude >= self.edges[i + 1]) as usize
     }
 }
 
@@ -203,7 +238,7 @@ impl LevelHistogram {
             return;
         }
         let (mut lo, mut hi) = (usize::MAX, 0);
-        let table = self.table;
+        let table = self.table.view();
         let (counts, sums) = (&mut self.counts[..], &mut self.sums[..]);
         for &a in amplitudes {
             let i = table.bin(a);
@@ -440,7 +475,7 @@ mod tests {
     /// `add_slice` as first written, one amplitude at a time; test oracle.
     fn add_slice_reference(h: &mut LevelHistogram, amplitudes: &[f64]) {
         for &a in amplitudes {
-            let i = h.table.bin(a);
+            let i = h.table.view().bin(a);
             h.counts[i] += 1;
             h.blocks[i / BLOCK] += 1;
             h.sums[i] += a.max(0.0);
@@ -500,7 +535,7 @@ mod tests {
         // cell's first and last value, and random amplitudes over 300 dB.
         let t = bin_table();
         let n = t.n;
-        let check = |a: f64| assert_eq!(t.bin(a), bin_by_log(a, n), "amplitude {a:e}");
+        let check = |a: f64| assert_eq!(t.view().bin(a), bin_by_log(a, n), "amplitude {a:e}");
         for &e in &t.edges[1..n] {
             let b = e.to_bits();
             for k in b - 40..=b + 40 {
