@@ -74,8 +74,8 @@ impl Env for Vec<f64> {
 /// check, and a read outside grows it to the read's block of `ENV_BLOCK`
 /// samples, so that the kernel sums vectorize.
 pub struct LazyEnvelope<'a> {
-    re: Cow<'a, [f64]>,
-    im: Cow<'a, [f64]>,
+    z: &'a [Complex32],
+    planes: Cow<'a, RefCell<Planes>>,
     kernel: &'a [f64],
     /// Weight sum of the whole kernel, added in the same order as `compute`.
     ws_full: f64,
@@ -91,49 +91,93 @@ pub struct LazyEnvelope<'a> {
 /// multiples of it, or the samples' end).
 const ENV_BLOCK: usize = 8;
 
-/// The real and imaginary parts of `z` in double precision, the form the
-/// envelope's sums read.
-pub fn planes(z: &[Complex32]) -> (Vec<f64>, Vec<f64>) {
-    let (mut re, mut im) = (Vec::new(), Vec::new());
-    planes_into(z, &mut re, &mut im);
-    (re, im)
+/// The real and imaginary parts of samples in double precision, the form
+/// the envelope's sums read, converted only where an envelope reaches (one
+/// stretch `lo..hi`, grown `PLANE_CHUNK` samples at a time), and shared by
+/// the envelopes of the same samples.
+#[derive(Clone, Debug, Default)]
+pub struct Planes {
+    re: Vec<f64>,
+    im: Vec<f64>,
+    lo: usize,
+    hi: usize,
 }
 
-/// `planes` into buffers kept from edge to edge.
-fn planes_into(z: &[Complex32], re: &mut Vec<f64>, im: &mut Vec<f64>) {
-    re.clear();
-    im.clear();
-    re.extend(z.iter().map(|v| v.re as f64));
-    im.extend(z.iter().map(|v| v.im as f64));
+const PLANE_CHUNK: usize = 32;
+
+impl Planes {
+    /// Forgets the converted samples (new samples, `n` of them).
+    pub fn reset(&mut self, n: usize) {
+        if self.re.len() < n {
+            self.re.resize(n, 0.0);
+            self.im.resize(n, 0.0);
+        }
+        (self.lo, self.hi) = (0, 0);
+    }
+
+    /// Converts `z[a..b]` (a < b <= z.len()), growing the converted stretch.
+    fn ensure(&mut self, z: &[Complex32], a: usize, b: usize) {
+        if self.lo < self.hi && a >= self.lo && b <= self.hi {
+            return;
+        }
+        let a = a / PLANE_CHUNK * PLANE_CHUNK;
+        let b = b
+            .div_ceil(PLANE_CHUNK)
+            .saturating_mul(PLANE_CHUNK)
+            .min(z.len());
+        let mut convert = |from: usize, to: usize| {
+            for ((r, i), v) in self.re[from..to]
+                .iter_mut()
+                .zip(&mut self.im[from..to])
+                .zip(&z[from..to])
+            {
+                (*r, *i) = (v.re as f64, v.im as f64);
+            }
+        };
+        if self.lo == self.hi {
+            convert(a, b);
+            (self.lo, self.hi) = (a, b);
+        } else {
+            if a < self.lo {
+                convert(a, self.lo);
+                self.lo = a;
+            }
+            if b > self.hi {
+                convert(self.hi, b);
+                self.hi = b;
+            }
+        }
+    }
 }
 
 impl<'a> LazyEnvelope<'a> {
-    pub fn new(z: &[Complex32], kernel: &'a [f64], noise_power: f64) -> LazyEnvelope<'a> {
-        let (re, im) = planes(z);
+    pub fn new(z: &'a [Complex32], kernel: &'a [f64], noise_power: f64) -> LazyEnvelope<'a> {
+        let mut planes = Planes::default();
+        planes.reset(z.len());
         let cache = vec![Cell::new(0.0); z.len()];
         Self::build(
-            Cow::Owned(re),
-            Cow::Owned(im),
+            z,
+            Cow::Owned(RefCell::new(planes)),
             kernel,
             noise_power,
             Cow::Owned(cache),
         )
     }
 
-    /// The envelope of the samples whose parts `planes` gave (`re`, `im`),
-    /// shared between envelopes of the same samples, its values kept in
+    /// The envelope of `z` whose parts `planes` holds (reset for `z`, and
+    /// shared between envelopes of the same samples), its values kept in
     /// `cache` (at least as long; what it holds is overwritten).
     pub fn from_planes(
-        re: &'a [f64],
-        im: &'a [f64],
+        z: &'a [Complex32],
+        planes: &'a RefCell<Planes>,
         kernel: &'a [f64],
         noise_power: f64,
         cache: &'a mut [f64],
     ) -> LazyEnvelope<'a> {
-        let cache = Cell::from_mut(&mut cache[..re.len()]).as_slice_of_cells();
+        let cache = Cell::from_mut(&mut cache[..z.len()]).as_slice_of_cells();
         Self::build(
-            Cow::Borrowed(re),
-            Cow::Borrowed(im),
+            z,
+            Cow::Borrowed(planes),
             kernel,
             noise_power,
             Cow::Borrowed(cache),
@@ -141,18 +185,18 @@ impl<'a> LazyEnvelope<'a> {
     }
 
     fn build(
-        re: Cow<'a, [f64]>,
-        im: Cow<'a, [f64]>,
+        z: &'a [Complex32],
+        planes: Cow<'a, RefCell<Planes>>,
         kernel: &'a [f64],
         noise_power: f64,
         cache: Cow<'a, [Cell<f64>]>,
     ) -> LazyEnvelope<'a> {
-        assert_eq!(re.len(), im.len());
-        assert_eq!(re.len(), cache.len());
+        assert_eq!(z.len(), cache.len());
+        assert!(planes.borrow().re.len() >= z.len());
         let g: f64 = kernel.iter().map(|w| w * w).sum();
         LazyEnvelope {
-            re,
-            im,
+            z,
+            planes,
             kernel,
             ws_full: kernel.iter().fold(0.0, |s, w| s + w),
             pn: noise_power * g,
@@ -172,10 +216,10 @@ impl<'a> LazyEnvelope<'a> {
 
     /// One sample on its own; near the ends of the samples the kernel is cut
     /// and renormalised.
-    fn compute(&self, i: usize) -> f64 {
-        let (re, im, kernel) = (&self.re[..], &self.im[..], self.kernel);
+    fn compute(&self, re: &[f64], im: &[f64], i: usize) -> f64 {
+        let kernel = self.kernel;
         let h = kernel.len() / 2;
-        let n = re.len();
+        let n = self.z.len();
         let (mut ar, mut ai) = (0.0f64, 0.0f64);
         if i >= h && i + h < n {
             // Whole kernel inside: no index checks in the loop.
@@ -222,9 +266,14 @@ impl<'a> LazyEnvelope<'a> {
 
     #[inline(always)]
     fn fill_any(&self, a: usize, b: usize) {
-        let (re, im, kernel) = (&self.re[..], &self.im[..], self.kernel);
+        let kernel = self.kernel;
         let h = kernel.len() / 2;
-        let n = re.len();
+        let n = self.z.len();
+        self.planes
+            .borrow_mut()
+            .ensure(self.z, a.saturating_sub(h), (b + h).min(n));
+        let planes = self.planes.borrow();
+        let (re, im) = (&planes.re[..n], &planes.im[..n]);
         let (pn, ws) = (self.pn, self.ws_full);
         let mut i0 = a;
         while i0 < b {
@@ -249,7 +298,7 @@ impl<'a> LazyEnvelope<'a> {
                 }
                 i0 += ENV_BLOCK;
             } else {
-                self.cache[i0].set(self.compute(i0));
+                self.cache[i0].set(self.compute(re, im, i0));
                 i0 += 1;
             }
         }
@@ -601,8 +650,7 @@ pub fn measure_edge(
 /// one is the same for every edge of a recording).
 #[derive(Default)]
 struct EdgeScratch {
-    re: Vec<f64>,
-    im: Vec<f64>,
+    planes: RefCell<Planes>,
     coarse: Vec<f64>,
     fine: Vec<f64>,
     k0: (u64, Vec<f64>),
@@ -638,18 +686,18 @@ fn measure_edge_local(
 ) -> Option<(Edge, f64)> {
     EDGE_SCRATCH.with_borrow_mut(|s| {
         let EdgeScratch {
-            re,
-            im,
+            planes,
             coarse,
             fine,
             k0,
             k1,
         } = s;
         // Both envelopes read the same samples in double precision.
-        planes_into(z, re, im);
         let n = z.len();
+        planes.get_mut().reset(n);
+        let planes = &*planes;
         let k0 = kernel_for(k0, coarse_sigma);
-        let env0 = LazyEnvelope::from_planes(re, im, k0, noise_power, at_least(coarse, n));
+        let env0 = LazyEnvelope::from_planes(z, planes, k0, noise_power, at_least(coarse, n));
         let coarse = find_edge(&env0, lv, at)?;
         let s0 = if k0.len() > 1 { coarse_sigma } else { 0.0 };
         let sigma = fine_sigma(&env0, lv, noise_power, &coarse, s0);
@@ -657,7 +705,7 @@ fn measure_edge_local(
         let edge = if k1.len() == k0.len() {
             coarse
         } else {
-            let env1 = LazyEnvelope::from_planes(re, im, k1, noise_power, at_least(fine, n));
+            let env1 = LazyEnvelope::from_planes(z, planes, k1, noise_power, at_least(fine, n));
             find_edge(&env1, lv, at).unwrap_or(coarse)
         };
         Some((edge, edge.width()))
