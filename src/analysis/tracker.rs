@@ -347,6 +347,23 @@ impl EdgeAverage {
     /// have floors i0, i0 + 1, ... (then the fraction x_k - floor(x_k) is
     /// worked out as `add_each` does); false, with nothing added, otherwise.
     fn add_successive(&mut self, z: &[Complex32], t50: f64) -> bool {
+        #[cfg(target_arch = "x86_64")]
+        if std::arch::is_x86_feature_detected!("avx") {
+            // SAFETY: the CPU has AVX.
+            return unsafe { self.add_successive_avx(z, t50) };
+        }
+        self.add_successive_any(z, t50)
+    }
+
+    /// Four lanes wide (the same operations, so the same values).
+    #[cfg(target_arch = "x86_64")]
+    #[target_feature(enable = "avx")]
+    fn add_successive_avx(&mut self, z: &[Complex32], t50: f64) -> bool {
+        self.add_successive_any(z, t50)
+    }
+
+    #[inline(always)]
+    fn add_successive_any(&mut self, z: &[Complex32], t50: f64) -> bool {
         let nk = self.sum.len();
         let (half, len) = (self.half as f64, z.len() as f64);
         if !t50.is_finite() || nk >= i32::MAX as usize || z.len() >= i32::MAX as usize {
