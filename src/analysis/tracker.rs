@@ -302,6 +302,10 @@ pub struct EdgeAverage {
     pub half: usize,
     pub sum: Vec<f64>,
     pub count: Vec<u32>,
+    /// |z|^2 of the samples one `add` reads, and the grid points'
+    /// fractions (scratch).
+    power: Vec<f64>,
+    frac: Vec<f64>,
 }
 
 impl EdgeAverage {
@@ -310,10 +314,22 @@ impl EdgeAverage {
             half,
             sum: vec![0.0; 2 * half + 1],
             count: vec![0; 2 * half + 1],
+            power: Vec::new(),
+            frac: Vec::new(),
         }
     }
     /// Adds |z|^2 around fractional index `t50` (linear interpolation).
+    /// The same values and operations as `add_reference`, in two
+    /// vectorizable passes where the grid points fall on successive samples
+    /// (always, but for rounding at a power of two).
     fn add(&mut self, z: &[Complex32], t50: f64) {
+        if !self.add_successive(z, t50) {
+            self.add_each(z, t50);
+        }
+    }
+
+    /// `add` one grid point at a time.
+    fn add_each(&mut self, z: &[Complex32], t50: f64) {
         for (k, (s, c)) in self.sum.iter_mut().zip(self.count.iter_mut()).enumerate() {
             let x = t50 + k as f64 - self.half as f64;
             if x < 0.0 || x + 1.0 >= z.len() as f64 {
@@ -326,6 +342,82 @@ impl EdgeAverage {
             *c += 1;
         }
     }
+
+    /// `add` when the grid points inside the samples, x_k = t50 + k - half,
+    /// have floors i0, i0 + 1, ... (then the fraction x_k - floor(x_k) is
+    /// worked out as `add_each` does); false, with nothing added, otherwise.
+    fn add_successive(&mut self, z: &[Complex32], t50: f64) -> bool {
+        #[cfg(target_arch = "x86_64")]
+        if std::arch::is_x86_feature_detected!("avx") {
+            // SAFETY: the CPU has AVX.
+            return unsafe { self.add_successive_avx(z, t50) };
+        }
+        self.add_successive_any(z, t50)
+    }
+
+    /// Four lanes wide (the same operations, so the same values).
+    #[cfg(target_arch = "x86_64")]
+    #[target_feature(enable = "avx")]
+    fn add_successive_avx(&mut self, z: &[Complex32], t50: f64) -> bool {
+        self.add_successive_any(z, t50)
+    }
+
+    #[inline(always)]
+    fn add_successive_any(&mut self, z: &[Complex32], t50: f64) -> bool {
+        let nk = self.sum.len();
+        let (half, len) = (self.half as f64, z.len() as f64);
+        if !t50.is_finite() || nk >= i32::MAX as usize || z.len() >= i32::MAX as usize {
+            return false;
+        }
+        // k as i32 as f64 is k as f64 (k < 2^31), and converts lane-wise.
+        let x_at = |k: usize| t50 + k as i32 as f64 - half;
+        // x_k is monotone in k (each rounding is), so the points inside the
+        // samples, 0 <= x_k and x_k + 1 < len, are one run k_lo..k_hi.
+        let first = |inside: &dyn Fn(usize) -> bool| {
+            let (mut a, mut b) = (0, nk);
+            while a < b {
+                let m = (a + b) / 2;
+                if inside(m) {
+                    b = m;
+                } else {
+                    a = m + 1;
+                }
+            }
+            a
+        };
+        let k_lo = first(&|k| x_at(k) >= 0.0);
+        let k_hi = first(&|k| x_at(k) + 1.0 >= len);
+        if k_lo >= k_hi {
+            return true;
+        }
+        let m = k_hi - k_lo;
+        let i_lo = x_at(k_lo) as i64 as usize;
+        // The fractions, if every floor is the expected one: x_k - i is
+        // exact for 0 <= x_k - i < 1 (Sterbenz), so that test is the floor's.
+        self.frac.clear();
+        self.frac.extend((k_lo..k_hi).map(|k| {
+            let i = (i_lo + (k - k_lo)) as i32 as f64;
+            x_at(k) - i
+        }));
+        if !self.frac.iter().all(|&f| (0.0..1.0).contains(&f)) {
+            return false;
+        }
+        self.power.clear();
+        self.power
+            .extend(z[i_lo..i_lo + m + 1].iter().map(|v| v.norm_sqr() as f64));
+        let p = &self.power[..];
+        for (((s, c), &f), (&a, &b)) in self.sum[k_lo..k_hi]
+            .iter_mut()
+            .zip(&mut self.count[k_lo..k_hi])
+            .zip(&self.frac)
+            .zip(p.iter().zip(&p[1..]))
+        {
+            *s += (1.0 - f) * a + f * b;
+            *c += 1;
+        }
+        true
+    }
+
     /// Mean envelope with the noise power removed.
     pub fn envelope(&self, noise_power: f64) -> Vec<f64> {
         self.sum
@@ -342,6 +434,84 @@ impl EdgeAverage {
     }
 }
 
+/// Moving sums of the detection envelope, real and imaginary parts apart so
+/// that their magnitudes vectorize (scratch). The first `len` values are
+/// the block's; the buffers only grow, so they are not cleared per block.
+#[derive(Debug, Default)]
+struct Sums {
+    re: Vec<f64>,
+    im: Vec<f64>,
+    len: usize,
+}
+
+impl Sums {
+    fn clear(&mut self) {
+        self.len = 0;
+    }
+    /// Room for `m` more values: the slices to write them to.
+    fn grow(&mut self, m: usize) -> (&mut [f64], &mut [f64]) {
+        let (from, to) = (self.len, self.len + m);
+        if self.re.len() < to {
+            self.re.resize(to, 0.0);
+            self.im.resize(to, 0.0);
+        }
+        self.len = to;
+        (&mut self.re[from..to], &mut self.im[from..to])
+    }
+    fn push(&mut self, s: Complex64) {
+        let (re, im) = self.grow(1);
+        (re[0], im[0]) = (s.re, s.im);
+    }
+    fn parts(&self) -> (&[f64], &[f64]) {
+        (&self.re[..self.len], &self.im[..self.len])
+    }
+}
+
+/// The moving sum `run` carried through `new` (each sample in, the one of
+/// `old` beside it out), each value appended to `sums`.
+fn moving_sums(run: &mut Complex64, new: &[Complex32], old: &[Complex32], sums: &mut Sums) {
+    let c64 = |z: &Complex32| Complex64::new(z.re as f64, z.im as f64);
+    let (re, im) = sums.grow(new.len().min(old.len()));
+    let mut r = *run;
+    for (((z, o), sr), si) in new.iter().zip(old).zip(re).zip(im) {
+        r += c64(z);
+        r -= c64(o);
+        (*sr, *si) = (r.re, r.im);
+    }
+    *run = r;
+}
+
+/// |s / w| of each moving sum, appended to `out`: (s / w).norm_sqr().sqrt()
+/// spelt out on the two parts. The sqrt of the squared magnitude: hypot
+/// guards against overflow that baseband samples of at most full scale
+/// cannot reach. The loop is bound by the divider, so it runs four lanes
+/// wide where the CPU has AVX (the same correctly rounded operations, so the
+/// same values).
+fn magnitudes(sums: &Sums, w: f64, out: &mut Vec<f64>) {
+    let (re, im) = sums.parts();
+    #[cfg(target_arch = "x86_64")]
+    if std::arch::is_x86_feature_detected!("avx") {
+        // SAFETY: the CPU has AVX.
+        unsafe { magnitudes_avx(re, im, w, out) };
+        return;
+    }
+    magnitudes_into(re, im, w, out);
+}
+
+#[inline(always)]
+fn magnitudes_into(re: &[f64], im: &[f64], w: f64, out: &mut Vec<f64>) {
+    out.extend(re.iter().zip(im).map(|(&sr, &si)| {
+        let (r, i) = (sr / w, si / w);
+        (r * r + i * i).sqrt()
+    }));
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx")]
+fn magnitudes_avx(re: &[f64], im: &[f64], w: f64, out: &mut Vec<f64>) {
+    magnitudes_into(re, im, w, out);
+}
+
 /// Streaming tracker of one tone in one channel.
 pub struct ToneTracker {
     dc: Downconverter,
@@ -354,8 +524,9 @@ pub struct ToneTracker {
     zbase: u64,
     win: usize,
     run: Complex64,
-    /// The block's detection envelope (scratch).
+    /// The block's detection envelope and its moving sums (scratch).
     dnew: Vec<f64>,
+    sums: Sums,
     /// Detection envelope from absolute index `detphys` on; `det0` is the
     /// first index it has (u64::MAX until the first value).
     det: Vec<f32>,
@@ -376,7 +547,6 @@ pub struct ToneTracker {
     gap: GapDelay,
     last_down: Option<u64>,
     noise: NoiseAcc,
-    out: Vec<Complex32>,
     elements: Vec<TrackedElement>,
     unmeasured: usize,
     cut_open: bool,
@@ -390,6 +560,11 @@ pub struct ToneTracker {
     trace_level: u32,
     trace_points: usize,
 }
+
+/// Dead samples, as a multiple of the live ones, that make `compact` move
+/// the buffers (the live part is about `LOOKAHEAD_S` of baseband, so the
+/// buffers hold about 4 times that).
+const COMPACT_AT: usize = 3;
 
 /// Settled key-down used for hum: this far inside the 90 % points, s.
 const HUM_GUARD_S: f64 = 0.002;
@@ -423,6 +598,7 @@ impl ToneTracker {
             win,
             run: Complex64::new(0.0, 0.0),
             dnew: Vec::new(),
+            sums: Sums::default(),
             det: Vec::new(),
             detphys: 0,
             det0: u64::MAX,
@@ -447,7 +623,6 @@ impl ToneTracker {
             hum: HumAcc::new(fs_d),
             input_samples: 0,
             keep_traces: cfg.keep_traces,
-            out: Vec::new(),
             elements: Vec::new(),
             unmeasured: 0,
             cut_open: false,
@@ -528,21 +703,22 @@ impl ToneTracker {
         self.unmeasured
     }
 
-    /// Feeds one channel's samples.
+    /// Feeds one channel's samples. The baseband goes straight onto the
+    /// end of the buffer.
     pub fn push(&mut self, samples: &[f32]) {
         self.input_samples += samples.len() as u64;
-        let mut out = std::mem::take(&mut self.out);
-        out.clear();
-        self.dc.push(samples, &mut out);
-        self.ingest(&out, false);
-        self.out = out;
+        self.compact();
+        let from = self.zbuf.len();
+        self.dc.push(samples, &mut self.zbuf);
+        self.ingest(from, false);
     }
 
     /// Ends the stream: flushes the filter and measures what is left.
     pub fn finish(&mut self) {
-        let mut out = Vec::new();
-        self.dc.flush(&mut out);
-        self.ingest(&out, true);
+        self.compact();
+        let from = self.zbuf.len();
+        self.dc.flush(&mut self.zbuf);
+        self.ingest(from, true);
         // An element whose 50 % instant falls at the very start or end of
         // the recording was cut by it (an abrupt start or end reads as an
         // edge right there).
@@ -561,41 +737,42 @@ impl ToneTracker {
         }
     }
 
-    fn ingest(&mut self, zs: &[Complex32], last: bool) {
-        self.compact();
+    /// Takes in the new baseband, `zbuf[from..]`.
+    fn ingest(&mut self, from: usize, last: bool) {
         let w = self.win as u64;
+        let zs = &self.zbuf[from..];
+        let new = zs.len();
         // Absolute index of zs[0].
-        let start = self.zphys + self.zbuf.len() as u64;
-        self.zbuf.extend_from_slice(zs);
+        let start = self.zphys + from as u64;
         // The detection envelope of the block: a coherent moving average of
         // `w` samples (the sum runs on, in f64), one value per sample from
         // the w-th on. First the samples whose window is not yet full...
-        let mut dnew = std::mem::take(&mut self.dnew);
-        dnew.clear();
+        // The sums are one serial chain and are stored as they are; their
+        // magnitudes follow in a separate loop, which vectorizes.
+        let mut sums = std::mem::take(&mut self.sums);
+        sums.clear();
         let mut run = self.run;
         let c64 = |z: &Complex32| Complex64::new(z.re as f64, z.im as f64);
         let lead = (w.saturating_sub(start) as usize).min(zs.len());
         for (k, z) in zs[..lead].iter().enumerate() {
             run += c64(z);
             if start + k as u64 + 1 >= w {
-                dnew.push((run / w as f64).norm_sqr().sqrt());
+                sums.push(run);
             }
         }
         // ...then the steady state, where the sample `w` back leaves the sum.
         if lead < zs.len() {
             let old_from = (start + lead as u64 - w - self.zphys) as usize;
             let old = &self.zbuf[old_from..old_from + zs.len() - lead];
-            for (z, o) in zs[lead..].iter().zip(old) {
-                run += c64(z);
-                run -= c64(o);
-                // sqrt of the squared magnitude: hypot guards against overflow
-                // that baseband samples of at most full scale cannot reach.
-                dnew.push((run / w as f64).norm_sqr().sqrt());
-            }
+            moving_sums(&mut run, &zs[lead..], old, &mut sums);
         }
         self.run = run;
+        let mut dnew = std::mem::take(&mut self.dnew);
+        dnew.clear();
+        magnitudes(&sums, w as f64, &mut dnew);
+        self.sums = sums;
         // Absolute baseband index of the sample that completed dnew[0].
-        let first_head = start + zs.len() as u64 - dnew.len() as u64;
+        let first_head = start + new as u64 - dnew.len() as u64;
         if self.det0 == u64::MAX && !dnew.is_empty() {
             // det index = head - (w-1)/2
             self.det0 = first_head - (w - 1) / 2;
@@ -631,7 +808,7 @@ impl ToneTracker {
             k = end;
         }
         if !last {
-            self.trim(start + zs.len() as u64);
+            self.trim(start + new as u64);
         }
         self.dnew = dnew;
         if last {
@@ -657,16 +834,19 @@ impl ToneTracker {
     }
 
     /// Drops the trimmed baseband and the segmented envelope from the
-    /// buffers' fronts once they are at least half of them (so each sample
-    /// is moved a bounded number of times).
+    /// buffers' fronts once they are `COMPACT_AT` times what is kept (so
+    /// each sample is moved 1 / `COMPACT_AT` times on average).
     fn compact(&mut self) {
         let dead = (self.zbase - self.zphys) as usize;
-        if dead > 0 && 2 * dead >= self.zbuf.len() {
+        if dead > 0 && dead >= COMPACT_AT * (self.zbuf.len() - dead) {
             self.zbuf.drain(..dead);
             self.zphys = self.zbase;
         }
         let dead = self.seg_q.saturating_sub(self.detphys) as usize;
-        if dead > 0 && 2 * dead >= self.det.len() && self.det0 != u64::MAX {
+        if dead > 0
+            && dead >= COMPACT_AT * self.det.len().saturating_sub(dead)
+            && self.det0 != u64::MAX
+        {
             let dead = dead.min(self.det.len());
             self.det.drain(..dead);
             self.detphys += dead as u64;
@@ -918,6 +1098,100 @@ impl ToneTracker {
 mod gap_tests {
     use super::*;
     use std::collections::VecDeque;
+
+    /// `EdgeAverage::add` as first written; test oracle.
+    fn add_reference(a: &mut EdgeAverage, z: &[Complex32], t50: f64) {
+        for (k, (s, c)) in a.sum.iter_mut().zip(a.count.iter_mut()).enumerate() {
+            let x = t50 + k as f64 - a.half as f64;
+            if x < 0.0 || x + 1.0 >= z.len() as f64 {
+                continue;
+            }
+            let i = x as i64 as usize;
+            let f = x - i as f64;
+            *s += (1.0 - f) * z[i].norm_sqr() as f64 + f * z[i + 1].norm_sqr() as f64;
+            *c += 1;
+        }
+    }
+
+    #[test]
+    fn edge_average_equals_the_plain_sum() {
+        // Instants inside, near and past both ends of the samples, with
+        // fractions that round when the grid offset is added (large t50).
+        let z: Vec<Complex32> = (0..3000)
+            .map(|i| Complex32::new((i as f32 * 0.37).sin(), (i as f32 * 0.05).cos()))
+            .collect();
+        let (mut fast, mut slow) = (EdgeAverage::new(300), EdgeAverage::new(300));
+        let mut t = -400.3;
+        while t < 3500.0 {
+            for t50 in [
+                t,
+                t + 1e-9,
+                t + 0.5,
+                2_047.999_999_999,
+                1023.7 + 1e-12,
+                2_047.999_999_999_999_8,
+                1_023.999_999_999_999_9,
+            ] {
+                fast.add(&z, t50);
+                add_reference(&mut slow, &z, t50);
+            }
+            t += 97.123_456_789;
+        }
+        for zs in [&z[..1], &z[..2], &z[..40]] {
+            fast.add(zs, 0.5);
+            add_reference(&mut slow, zs, 0.5);
+        }
+        assert_eq!(fast.count, slow.count);
+        assert_eq!(fast.sum, slow.sum);
+        // Where t50 + k rounds up to the next integer, the two-pass path
+        // declines and the one-point-at-a-time loop runs.
+        assert!(!EdgeAverage::new(300).add_successive(&z, 2_047.999_999_999_999_8));
+        assert!(EdgeAverage::new(300).add_successive(&z, 1500.25));
+        // A t50 that is not a number reads as the old loop did.
+        fast.add(&z, f64::NAN);
+        add_reference(&mut slow, &z, f64::NAN);
+        let bits = |a: &EdgeAverage| a.sum.iter().map(|v| v.to_bits()).collect::<Vec<_>>();
+        assert_eq!(fast.count, slow.count);
+        assert_eq!(bits(&fast), bits(&slow));
+    }
+
+    #[test]
+    fn split_detection_loops_equal_the_one_loop() {
+        // Oracle: the detection envelope's steady-state loop as first
+        // written, sum and magnitude of each sample in one pass.
+        let mut seed = 5u64;
+        let mut z = || {
+            seed = seed.wrapping_mul(6_364_136_223_846_793_005).wrapping_add(1);
+            let u = (seed >> 40) as f32 / (1u32 << 24) as f32 - 0.5;
+            Complex32::new(u, 0.3 * u - 0.1)
+        };
+        let w = 25usize;
+        let zs: Vec<Complex32> = (0..5000).map(|_| z()).collect();
+        let mut run = zs[..w].iter().fold(Complex64::new(0.0, 0.0), |s, v| {
+            s + Complex64::new(v.re as f64, v.im as f64)
+        });
+        let (mut want, mut run0) = (Vec::new(), run);
+        for (zn, o) in zs[w..].iter().zip(&zs) {
+            run0 += Complex64::new(zn.re as f64, zn.im as f64);
+            run0 -= Complex64::new(o.re as f64, o.im as f64);
+            want.push((run0 / w as f64).norm_sqr().sqrt());
+        }
+        let (mut sums, mut got) = (Sums::default(), Vec::new());
+        // In uneven blocks, as the downconverter delivers them.
+        let mut k = w;
+        for step in [1, 7, 300, 1000, 5000].iter().cycle() {
+            if k >= zs.len() {
+                break;
+            }
+            let e = (k + step).min(zs.len());
+            sums.clear();
+            moving_sums(&mut run, &zs[k..e], &zs[k - w..e - w], &mut sums);
+            magnitudes(&sums, w as f64, &mut got);
+            k = e;
+        }
+        assert_eq!(run, run0);
+        assert_eq!(got, want);
+    }
 
     #[test]
     fn gap_delay_and_noise_runs_equal_sample_by_sample() {

@@ -10,7 +10,7 @@
 //! point.
 
 use std::borrow::Cow;
-use std::cell::Cell;
+use std::cell::{Cell, RefCell};
 
 use rustfft::num_complex::Complex32;
 
@@ -67,86 +67,159 @@ impl Env for Vec<f64> {
     }
 }
 
-/// The envelope of `envelope`, computed only at the samples an edge search
-/// reads (a few edge widths around the crossings) and remembered; each value
-/// is the same as `envelope` gives. Values are computed a block of
-/// `ENV_BLOCK` samples at a time, so that the kernel sums vectorize.
+/// The envelope of `envelope`, computed only over the stretch an edge search
+/// reads and remembered; each value is the same as `envelope` gives. The
+/// searches walk outwards from the comparator's switching, so the computed
+/// samples are kept as one stretch `lo..hi`: a read inside it costs one range
+/// check, and a read outside grows it to the read's block of `ENV_BLOCK`
+/// samples, so that the kernel sums vectorize.
 pub struct LazyEnvelope<'a> {
-    re: Cow<'a, [f64]>,
-    im: Cow<'a, [f64]>,
+    z: &'a [Complex32],
+    planes: Cow<'a, RefCell<Planes>>,
     kernel: &'a [f64],
     /// Weight sum of the whole kernel, added in the same order as `compute`.
     ws_full: f64,
     /// Noise power after smoothing.
     pn: f64,
-    cache: Vec<Cell<f64>>,
-    /// Which blocks of `cache` hold their values.
-    done: Vec<Cell<bool>>,
+    /// Envelope values; those of `lo..hi` are computed, the rest unset.
+    cache: Cow<'a, [Cell<f64>]>,
+    lo: Cell<usize>,
+    hi: Cell<usize>,
 }
 
-/// Samples per block of a `LazyEnvelope`.
+/// Samples per block of a `LazyEnvelope` (the computed stretch's ends are
+/// multiples of it, or the samples' end).
 const ENV_BLOCK: usize = 8;
 
-/// The real and imaginary parts of `z` in double precision, the form the
-/// envelope's sums read.
-pub fn planes(z: &[Complex32]) -> (Vec<f64>, Vec<f64>) {
-    (
-        z.iter().map(|v| v.re as f64).collect(),
-        z.iter().map(|v| v.im as f64).collect(),
-    )
+/// The real and imaginary parts of samples in double precision, the form
+/// the envelope's sums read, converted only where an envelope reaches (one
+/// stretch `lo..hi`, grown `PLANE_CHUNK` samples at a time), and shared by
+/// the envelopes of the same samples.
+#[derive(Clone, Debug, Default)]
+pub struct Planes {
+    re: Vec<f64>,
+    im: Vec<f64>,
+    lo: usize,
+    hi: usize,
+}
+
+const PLANE_CHUNK: usize = 32;
+
+impl Planes {
+    /// Forgets the converted samples (new samples, `n` of them).
+    pub fn reset(&mut self, n: usize) {
+        if self.re.len() < n {
+            self.re.resize(n, 0.0);
+            self.im.resize(n, 0.0);
+        }
+        (self.lo, self.hi) = (0, 0);
+    }
+
+    /// Converts `z[a..b]` (a < b <= z.len()), growing the converted stretch.
+    fn ensure(&mut self, z: &[Complex32], a: usize, b: usize) {
+        if self.lo < self.hi && a >= self.lo && b <= self.hi {
+            return;
+        }
+        let a = a / PLANE_CHUNK * PLANE_CHUNK;
+        let b = b
+            .div_ceil(PLANE_CHUNK)
+            .saturating_mul(PLANE_CHUNK)
+            .min(z.len());
+        let mut convert = |from: usize, to: usize| {
+            for ((r, i), v) in self.re[from..to]
+                .iter_mut()
+                .zip(&mut self.im[from..to])
+                .zip(&z[from..to])
+            {
+                (*r, *i) = (v.re as f64, v.im as f64);
+            }
+        };
+        if self.lo == self.hi {
+            convert(a, b);
+            (self.lo, self.hi) = (a, b);
+        } else {
+            if a < self.lo {
+                convert(a, self.lo);
+                self.lo = a;
+            }
+            if b > self.hi {
+                convert(self.hi, b);
+                self.hi = b;
+            }
+        }
+    }
 }
 
 impl<'a> LazyEnvelope<'a> {
-    pub fn new(z: &[Complex32], kernel: &'a [f64], noise_power: f64) -> LazyEnvelope<'a> {
-        let (re, im) = planes(z);
-        Self::build(Cow::Owned(re), Cow::Owned(im), kernel, noise_power)
+    pub fn new(z: &'a [Complex32], kernel: &'a [f64], noise_power: f64) -> LazyEnvelope<'a> {
+        let mut planes = Planes::default();
+        planes.reset(z.len());
+        let cache = vec![Cell::new(0.0); z.len()];
+        Self::build(
+            z,
+            Cow::Owned(RefCell::new(planes)),
+            kernel,
+            noise_power,
+            Cow::Owned(cache),
+        )
     }
 
-    /// The envelope of the samples whose parts `planes` gave (`re`, `im`),
-    /// shared between envelopes of the same samples.
+    /// The envelope of `z` whose parts `planes` holds (reset for `z`, and
+    /// shared between envelopes of the same samples), its values kept in
+    /// `cache` (at least as long; what it holds is overwritten).
     pub fn from_planes(
-        re: &'a [f64],
-        im: &'a [f64],
+        z: &'a [Complex32],
+        planes: &'a RefCell<Planes>,
         kernel: &'a [f64],
         noise_power: f64,
+        cache: &'a mut [f64],
     ) -> LazyEnvelope<'a> {
-        Self::build(Cow::Borrowed(re), Cow::Borrowed(im), kernel, noise_power)
+        let cache = Cell::from_mut(&mut cache[..z.len()]).as_slice_of_cells();
+        Self::build(
+            z,
+            Cow::Borrowed(planes),
+            kernel,
+            noise_power,
+            Cow::Borrowed(cache),
+        )
     }
 
     fn build(
-        re: Cow<'a, [f64]>,
-        im: Cow<'a, [f64]>,
+        z: &'a [Complex32],
+        planes: Cow<'a, RefCell<Planes>>,
         kernel: &'a [f64],
         noise_power: f64,
+        cache: Cow<'a, [Cell<f64>]>,
     ) -> LazyEnvelope<'a> {
-        assert_eq!(re.len(), im.len());
+        assert_eq!(z.len(), cache.len());
+        assert!(planes.borrow().re.len() >= z.len());
         let g: f64 = kernel.iter().map(|w| w * w).sum();
-        let n = re.len();
         LazyEnvelope {
-            re,
-            im,
+            z,
+            planes,
             kernel,
             ws_full: kernel.iter().fold(0.0, |s, w| s + w),
             pn: noise_power * g,
-            // Zeroed memory, turned into cells in place (no fill loop).
-            cache: vec![0.0f64; n].into_iter().map(Cell::new).collect(),
-            done: vec![Cell::new(false); n.div_ceil(ENV_BLOCK)],
+            cache,
+            lo: Cell::new(0),
+            hi: Cell::new(0),
         }
     }
 
     /// The envelope from a smoothed sample `(re, im)` and its weight sum.
-    fn finish(&self, re: f64, im: f64, ws: f64) -> f64 {
+    #[inline(always)]
+    fn finish(pn: f64, re: f64, im: f64, ws: f64) -> f64 {
         let (r, i) = (re / ws, im / ws);
-        let p = (r * r + i * i) - self.pn;
+        let p = (r * r + i * i) - pn;
         p.max(0.0).sqrt()
     }
 
     /// One sample on its own; near the ends of the samples the kernel is cut
     /// and renormalised.
-    fn compute(&self, i: usize) -> f64 {
-        let (re, im, kernel) = (&self.re[..], &self.im[..], self.kernel);
+    fn compute(&self, re: &[f64], im: &[f64], i: usize) -> f64 {
+        let kernel = self.kernel;
         let h = kernel.len() / 2;
-        let n = re.len();
+        let n = self.z.len();
         let (mut ar, mut ai) = (0.0f64, 0.0f64);
         if i >= h && i + h < n {
             // Whole kernel inside: no index checks in the loop.
@@ -158,7 +231,7 @@ impl<'a> LazyEnvelope<'a> {
                 ar += r * w;
                 ai += m * w;
             }
-            self.finish(ar, ai, self.ws_full)
+            Self::finish(self.pn, ar, ai, self.ws_full)
         } else {
             let mut ws = 0.0;
             let a = i.saturating_sub(h);
@@ -169,40 +242,90 @@ impl<'a> LazyEnvelope<'a> {
                 ai += im[j] * w;
                 ws += w;
             }
-            self.finish(ar, ai, ws)
+            Self::finish(self.pn, ar, ai, ws)
         }
     }
 
-    /// Fills block `blk` of the cache.
-    fn fill(&self, blk: usize) {
-        let (re, im, kernel) = (&self.re[..], &self.im[..], self.kernel);
+    /// Computes samples `a..b` into the cache: four lanes wide where the CPU
+    /// has AVX (the same additions in the same order, so the same values).
+    fn fill(&self, a: usize, b: usize) {
+        #[cfg(target_arch = "x86_64")]
+        if std::arch::is_x86_feature_detected!("avx") {
+            // SAFETY: the CPU has AVX.
+            unsafe { self.fill_avx(a, b) };
+            return;
+        }
+        self.fill_any(a, b);
+    }
+
+    #[cfg(target_arch = "x86_64")]
+    #[target_feature(enable = "avx")]
+    fn fill_avx(&self, a: usize, b: usize) {
+        self.fill_any(a, b);
+    }
+
+    #[inline(always)]
+    fn fill_any(&self, a: usize, b: usize) {
+        let kernel = self.kernel;
         let h = kernel.len() / 2;
-        let n = re.len();
-        let i0 = blk * ENV_BLOCK;
-        let i1 = (i0 + ENV_BLOCK).min(n);
-        if i0 >= h && i0 + ENV_BLOCK + h <= n {
-            // A whole block with the whole kernel inside: taps in kernel
-            // order for every sample, as `compute` adds them.
-            let sums = |x: &[f64]| {
-                let seg = &x[i0 - h..i0 + ENV_BLOCK + h];
-                let mut acc = [0.0f64; ENV_BLOCK];
-                for (win, &w) in seg.windows(ENV_BLOCK).zip(kernel) {
-                    for (a, v) in acc.iter_mut().zip(win) {
-                        *a += v * w;
+        let n = self.z.len();
+        self.planes
+            .borrow_mut()
+            .ensure(self.z, a.saturating_sub(h), (b + h).min(n));
+        let planes = self.planes.borrow();
+        let (re, im) = (&planes.re[..n], &planes.im[..n]);
+        let (pn, ws) = (self.pn, self.ws_full);
+        let mut i0 = a;
+        while i0 < b {
+            if i0 >= h && i0 + ENV_BLOCK <= b && i0 + ENV_BLOCK + h <= n {
+                // A whole block with the whole kernel inside: taps in kernel
+                // order for every sample, as `compute` adds them, both parts
+                // in one pass.
+                let sr = &re[i0 - h..i0 + ENV_BLOCK + h];
+                let si = &im[i0 - h..i0 + ENV_BLOCK + h];
+                let mut ar = [0.0f64; ENV_BLOCK];
+                let mut ai = [0.0f64; ENV_BLOCK];
+                for (j, &w) in kernel.iter().enumerate() {
+                    let (xr, xi) = (&sr[j..j + ENV_BLOCK], &si[j..j + ENV_BLOCK]);
+                    for k in 0..ENV_BLOCK {
+                        ar[k] += xr[k] * w;
+                        ai[k] += xi[k] * w;
                     }
                 }
-                acc
-            };
-            let (ar, ai) = (sums(re), sums(im));
-            for b in 0..ENV_BLOCK {
-                self.cache[i0 + b].set(self.finish(ar[b], ai[b], self.ws_full));
-            }
-        } else {
-            for i in i0..i1 {
-                self.cache[i].set(self.compute(i));
+                let out = &self.cache[i0..i0 + ENV_BLOCK];
+                for k in 0..ENV_BLOCK {
+                    out[k].set(Self::finish(pn, ar[k], ai[k], ws));
+                }
+                i0 += ENV_BLOCK;
+            } else {
+                self.cache[i0].set(self.compute(re, im, i0));
+                i0 += 1;
             }
         }
-        self.done[blk].set(true);
+    }
+
+    /// Grows the computed stretch to hold sample `i`.
+    #[cold]
+    #[inline(never)]
+    fn extend(&self, i: usize) {
+        let n = self.cache.len();
+        assert!(i < n, "envelope index {i} of {n}");
+        let (blk_lo, blk_hi) = (
+            i / ENV_BLOCK * ENV_BLOCK,
+            ((i / ENV_BLOCK + 1) * ENV_BLOCK).min(n),
+        );
+        let (lo, hi) = (self.lo.get(), self.hi.get());
+        if lo == hi {
+            self.fill(blk_lo, blk_hi);
+            self.lo.set(blk_lo);
+            self.hi.set(blk_hi);
+        } else if i >= hi {
+            self.fill(hi, blk_hi);
+            self.hi.set(blk_hi);
+        } else {
+            self.fill(blk_lo, lo);
+            self.lo.set(blk_lo);
+        }
     }
 }
 
@@ -210,10 +333,10 @@ impl Env for LazyEnvelope<'_> {
     fn len(&self) -> usize {
         self.cache.len()
     }
+    #[inline]
     fn at(&self, i: usize) -> f64 {
-        let blk = i / ENV_BLOCK;
-        if !self.done[blk].get() {
-            self.fill(blk);
+        if i < self.lo.get() || i >= self.hi.get() {
+            self.extend(i);
         }
         self.cache[i].get()
     }
@@ -522,6 +645,38 @@ pub fn measure_edge(
     ))
 }
 
+/// Buffers one thread's edge measurements reuse: the samples' parts, the
+/// two envelopes' values, and the last kernels with their sigmas (the coarse
+/// one is the same for every edge of a recording).
+#[derive(Default)]
+struct EdgeScratch {
+    planes: RefCell<Planes>,
+    coarse: Vec<f64>,
+    fine: Vec<f64>,
+    k0: (u64, Vec<f64>),
+    k1: (u64, Vec<f64>),
+}
+
+thread_local! {
+    static EDGE_SCRATCH: RefCell<EdgeScratch> = RefCell::new(EdgeScratch::default());
+}
+
+/// `gaussian_kernel(sigma)`, remembered with its sigma.
+fn kernel_for(slot: &mut (u64, Vec<f64>), sigma: f64) -> &[f64] {
+    if slot.1.is_empty() || slot.0 != sigma.to_bits() {
+        *slot = (sigma.to_bits(), gaussian_kernel(sigma));
+    }
+    &slot.1
+}
+
+/// A buffer of at least `n` values (contents unspecified).
+fn at_least(v: &mut Vec<f64>, n: usize) -> &mut [f64] {
+    if v.len() < n {
+        v.resize(n, 0.0);
+    }
+    &mut v[..n]
+}
+
 fn measure_edge_local(
     z: &[Complex32],
     lv: &StateLevels,
@@ -529,20 +684,52 @@ fn measure_edge_local(
     at: EdgeSearch,
     coarse_sigma: f64,
 ) -> Option<(Edge, f64)> {
-    let find = |env: &LazyEnvelope| {
-        if at.rising {
-            rise_edge(env, lv, at.near, at.lo, at.hi)
+    EDGE_SCRATCH.with_borrow_mut(|s| {
+        let EdgeScratch {
+            planes,
+            coarse,
+            fine,
+            k0,
+            k1,
+        } = s;
+        // Both envelopes read the same samples in double precision.
+        let n = z.len();
+        planes.get_mut().reset(n);
+        let planes = &*planes;
+        let k0 = kernel_for(k0, coarse_sigma);
+        let env0 = LazyEnvelope::from_planes(z, planes, k0, noise_power, at_least(coarse, n));
+        let coarse = find_edge(&env0, lv, at)?;
+        let s0 = if k0.len() > 1 { coarse_sigma } else { 0.0 };
+        let sigma = fine_sigma(&env0, lv, noise_power, &coarse, s0);
+        let k1 = kernel_for(k1, sigma);
+        let edge = if k1.len() == k0.len() {
+            coarse
         } else {
-            fall_edge(env, lv, at.near, at.lo, at.hi)
-        }
-    };
-    // Both envelopes read the same samples in double precision.
-    let (re, im) = planes(z);
-    let k0 = gaussian_kernel(coarse_sigma);
-    let env0 = LazyEnvelope::from_planes(&re, &im, &k0, noise_power);
-    let coarse = find(&env0)?;
+            let env1 = LazyEnvelope::from_planes(z, planes, k1, noise_power, at_least(fine, n));
+            find_edge(&env1, lv, at).unwrap_or(coarse)
+        };
+        Some((edge, edge.width()))
+    })
+}
 
-    let s0 = if k0.len() > 1 { coarse_sigma } else { 0.0 };
+/// The edge `at` asks for on `env`.
+fn find_edge<E: Env + ?Sized>(env: &E, lv: &StateLevels, at: EdgeSearch) -> Option<Edge> {
+    if at.rising {
+        rise_edge(env, lv, at.near, at.lo, at.hi)
+    } else {
+        fall_edge(env, lv, at.near, at.lo, at.hi)
+    }
+}
+
+/// Smoothing sigma of the fine envelope, from the coarse edge `coarse` on
+/// `env0` (smoothed by a Gaussian of sigma `s0`, 0 for none).
+fn fine_sigma<E: Env + ?Sized>(
+    env0: &E,
+    lv: &StateLevels,
+    noise_power: f64,
+    coarse: &Edge,
+    s0: f64,
+) -> f64 {
     let w_est = (coarse.width().powi(2) - (GAUSS_10_90_PER_SIGMA * s0).powi(2))
         .max(0.0)
         .sqrt();
@@ -568,18 +755,11 @@ fn measure_edge_local(
     let g_needed = (slope * JITTER_SHARE / rel.max(1e-12)).powi(2);
     let sigma_noise = 1.0 / (2.0 * std::f64::consts::PI.sqrt() * g_needed.min(1.0));
     let sigma_cap = MAX_SMOOTH_SHARE * w_est / GAUSS_10_90_PER_SIGMA;
-    let sigma = if g_needed >= 1.0 {
+    if g_needed >= 1.0 {
         0.0
     } else {
         sigma_noise.min(sigma_cap)
-    };
-    let k1 = gaussian_kernel(sigma);
-    let edge = if k1.len() == k0.len() {
-        coarse
-    } else {
-        find(&LazyEnvelope::from_planes(&re, &im, &k1, noise_power)).unwrap_or(coarse)
-    };
-    Some((edge, edge.width()))
+    }
 }
 
 #[cfg(test)]
@@ -657,6 +837,132 @@ mod tests {
                 assert_eq!(lazy.at(i), want[i], "{sigma} {i}");
             }
         }
+    }
+
+    /// `measure_edge` as first written (planes and per-edge envelopes
+    /// allocated for each edge, the fine sigma computed inline), here on
+    /// whole envelopes from `envelope_reference`; test oracle.
+    fn measure_edge_reference(
+        z: &[Complex32],
+        lv: &StateLevels,
+        noise_power: f64,
+        at: EdgeSearch,
+        coarse_sigma: f64,
+    ) -> Option<(Edge, f64)> {
+        let a = at.lo.max(at.near.saturating_sub(at.span));
+        let b = (at.hi.min(at.near + at.span) + 1).min(z.len());
+        if b <= a + 4 || at.near < a || at.near >= b {
+            return None;
+        }
+        let z = &z[a..b];
+        let (near, lo, hi) = (at.near - a, 0, b - a - 1);
+        let find = |env: &Vec<f64>| {
+            if at.rising {
+                rise_edge(env, lv, near, lo, hi)
+            } else {
+                fall_edge(env, lv, near, lo, hi)
+            }
+        };
+        let k0 = gaussian_kernel(coarse_sigma);
+        let env0 = envelope_reference(z, &k0, noise_power);
+        let coarse = find(&env0)?;
+        let s0 = if k0.len() > 1 { coarse_sigma } else { 0.0 };
+        let w_est = (coarse.width().powi(2) - (GAUSS_10_90_PER_SIGMA * s0).powi(2))
+            .max(0.0)
+            .sqrt();
+        let rel = if lv.high > 0.0 {
+            (noise_power / 2.0).sqrt() / lv.high
+        } else {
+            0.0
+        };
+        let d = (0.25 * w_est).max(1.0);
+        let slope_at = |t: f64| {
+            let i0 = (t - d).max(0.0) as usize;
+            let i1 = ((t + d) as usize).min(env0.len() - 1);
+            (env0[i1] - env0[i0]).abs() / ((i1 - i0).max(1) as f64) * w_est.max(1.0)
+                / lv.high.max(1e-12)
+        };
+        let slope = slope_at(coarse.t10)
+            .min(slope_at(coarse.t90))
+            .clamp(0.05, 0.8);
+        let g_needed = (slope * JITTER_SHARE / rel.max(1e-12)).powi(2);
+        let sigma_noise = 1.0 / (2.0 * std::f64::consts::PI.sqrt() * g_needed.min(1.0));
+        let sigma_cap = MAX_SMOOTH_SHARE * w_est / GAUSS_10_90_PER_SIGMA;
+        let sigma = if g_needed >= 1.0 {
+            0.0
+        } else {
+            sigma_noise.min(sigma_cap)
+        };
+        let k1 = gaussian_kernel(sigma);
+        let edge = if k1.len() == k0.len() {
+            coarse
+        } else {
+            find(&envelope_reference(z, &k1, noise_power)).unwrap_or(coarse)
+        };
+        let off = a as f64;
+        Some((
+            Edge {
+                t10: edge.t10 + off,
+                t50: edge.t50 + off,
+                t90: edge.t90 + off,
+            },
+            edge.width(),
+        ))
+    }
+
+    #[test]
+    fn measured_edges_equal_the_plain_measurement() {
+        // Scratch buffers and the stretch-wise lazy envelope against whole
+        // envelopes summed sample by sample: identical edges, for noisy
+        // rising and falling edges of varied width and SNR, stretches of
+        // varied length (buffers growing and shrinking between edges), and
+        // searches cut short by `lo`/`hi` and by the samples' ends.
+        let mut st = 19u64;
+        let mut uni = move || {
+            st = st.wrapping_mul(6_364_136_223_846_793_005).wrapping_add(1);
+            (st >> 11) as f64 / (1u64 << 53) as f64 - 0.5
+        };
+        let mut checked = 0;
+        for trial in 0..60 {
+            let n = 300 + 97 * (trial % 13);
+            let width = 2.0 + (trial * 7 % 41) as f64 * 1.5;
+            let centre = n as f64 * (0.3 + 0.02 * (trial % 11) as f64);
+            let sd = [0.0, 0.002, 0.02, 0.08, 0.2][trial % 5];
+            let rising = trial % 2 == 0;
+            let z: Vec<Complex32> = (0..n)
+                .map(|i| {
+                    let x = ((i as f64 - centre) / width + 0.5).clamp(0.0, 1.0);
+                    let a = if rising { x } else { 1.0 - x };
+                    let (nr, ni) = (sd * 3.4 * uni(), sd * 3.4 * uni());
+                    Complex32::new((0.7 * a + nr) as f32, (0.7 * a * 0.3 + ni) as f32)
+                })
+                .collect();
+            let high = 0.7 * (1.0f64 + 0.09).sqrt();
+            let lv = StateLevels { low: 0.0, high };
+            let pn = 2.0 * (sd * 3.4).powi(2) / 12.0;
+            let near = centre as usize + trial % 5;
+            for (lo, hi, span) in [
+                (0, n - 1, 600),
+                (near / 2, n - 1, 150),
+                (0, (near + n) / 2, 40),
+                (0, n - 1, 6),
+            ] {
+                let at = EdgeSearch {
+                    near,
+                    lo,
+                    hi,
+                    rising,
+                    span,
+                };
+                for sigma in [3.0, 0.2, 1.3] {
+                    let want = measure_edge_reference(&z, &lv, pn, at, sigma);
+                    let got = measure_edge(&z, &lv, pn, at, sigma);
+                    assert_eq!(got, want, "trial {trial} {lo}..{hi} {span} {sigma}");
+                    checked += want.is_some() as usize;
+                }
+            }
+        }
+        assert!(checked > 300, "{checked}");
     }
 
     /// The plain sample-by-sample occupancy `occupancy_crossing` was derived

@@ -31,6 +31,9 @@ fn bin_count() -> usize {
     ((MAX_DB - MIN_DB) / BIN_DB) as usize
 }
 
+/// At least the number of blocks (checked in `LevelHistogram::new`).
+const MAX_BLOCKS: usize = 160;
+
 /// The defining bin of an amplitude: 0.05 dB steps of 20 log10(a) from
 /// `MIN_DB`, clamped to the histogram. 20 log10 goes through the natural
 /// logarithm, which libm computes several times faster than log10 (equal to
@@ -119,21 +122,56 @@ impl BinTable {
         }
     }
 
+    /// The fields a bin lookup reads, as values: a loop that copies them out
+    /// keeps them at hand instead of reloading them after every store.
+    #[inline]
+    fn view(&self) -> BinView<'_> {
+        BinView {
+            cells: &self.cells,
+            edges: &self.edges,
+            key_lo: self.key_lo,
+            span: self.key_hi - self.key_lo,
+            top: self.n - 1,
+        }
+    }
+}
+
+#[derive(Clone, Copy)]
+struct BinView<'a> {
+    cells: &'a [u16],
+    edges: &'a [f64],
+    key_lo: u64,
+    span: u64,
+    top: usize,
+}
+
+impl BinView<'_> {
+    /// An amplitude whose key is one of the cells' is positive and finite
+    /// (a negative amplitude's or a NaN's key lies above them, zero's below),
+    /// so that case takes one range test; the rest go to `outside`.
     #[inline]
     fn bin(&self, amplitude: f64) -> usize {
+        let d = (amplitude.to_bits() >> CELL_SHIFT).wrapping_sub(self.key_lo);
+        if d < self.span {
+            let i = self.cells[d as usize] as usize;
+            i + (amplitude >= self.edges[i + 1]) as usize
+        } else {
+            self.outside(amplitude)
+        }
+    }
+
+    #[inline(never)]
+    fn outside(&self, amplitude: f64) -> usize {
         // Zero, negative and NaN amplitudes go to bin 0, as in `bin_by_log`.
         if amplitude.partial_cmp(&0.0) != Some(std::cmp::Ordering::Greater) {
             return 0;
         }
         let key = amplitude.to_bits() >> CELL_SHIFT;
         if key < self.key_lo {
-            return 0;
+            0
+        } else {
+            self.top
         }
-        if key >= self.key_hi {
-            return self.n - 1;
-        }
-        let i = self.cells[(key - self.key_lo) as usize] as usize;
-        i + (amplitude >= self.edges[i + 1]) as usize
     }
 }
 
@@ -166,6 +204,7 @@ impl Default for LevelHistogram {
 impl LevelHistogram {
     pub fn new() -> LevelHistogram {
         let n = bin_count();
+        assert!(n.div_ceil(BLOCK) <= MAX_BLOCKS);
         LevelHistogram {
             counts: vec![0; n],
             sums: vec![0.0; n],
@@ -190,25 +229,31 @@ impl LevelHistogram {
         self.last = 0;
     }
 
-    /// Adds many amplitudes (as `add` one by one).
+    /// Adds many amplitudes (as `add` one by one). The block counts are
+    /// summed afresh over the blocks the slice touched, after it: counted per
+    /// sample they were a chain of increments of one memory cell (successive
+    /// amplitudes nearly always share a block).
     pub fn add_slice(&mut self, amplitudes: &[f64]) {
-        let (mut first, mut last) = (self.first, self.last);
-        let table = self.table;
-        let (counts, sums, blocks) = (
-            &mut self.counts[..],
-            &mut self.sums[..],
-            &mut self.blocks[..],
-        );
+        if amplitudes.is_empty() {
+            return;
+        }
+        let (mut lo, mut hi) = (usize::MAX, 0);
+        let table = self.table.view();
+        let (counts, sums) = (&mut self.counts[..], &mut self.sums[..]);
         for &a in amplitudes {
             let i = table.bin(a);
             counts[i] += 1;
-            blocks[i / BLOCK] += 1;
             sums[i] += a.max(0.0);
-            first = first.min(i);
-            last = last.max(i);
+            lo = lo.min(i);
+            hi = hi.max(i);
+        }
+        for (b, block) in self.blocks[lo / BLOCK..=hi / BLOCK].iter_mut().enumerate() {
+            let start = (lo / BLOCK + b) * BLOCK;
+            let end = (start + BLOCK).min(counts.len());
+            *block = counts[start..end].iter().sum();
         }
         self.total += amplitudes.len() as u64;
-        (self.first, self.last) = (first, last);
+        (self.first, self.last) = (self.first.min(lo), self.last.max(hi));
     }
 
     #[inline]
@@ -329,22 +374,56 @@ impl LevelHistogram {
             if run > best.0 || (run == best.0 && i < best.1) {
                 *best = (run, i);
             }
-            for j in i + 1..end {
+            // Where the window lies wholly inside lo..hi, it gains a bin and
+            // loses one at every step, without the range checks.
+            let (m0, m1) = (
+                (lo + half + 1).clamp(i + 1, end),
+                hi.saturating_sub(half).clamp(i + 1, end),
+            );
+            let step = |j: usize, run: &mut u64, best: &mut (u64, usize)| {
                 if j + half < hi {
-                    run += counts[j + half];
+                    *run += counts[j + half];
                 }
                 if j > lo + half {
-                    run -= counts[j - half - 1];
+                    *run -= counts[j - half - 1];
                 }
-                if run > best.0 || (run == best.0 && j < best.1) {
-                    *best = (run, j);
+                if *run > best.0 || (*run == best.0 && j < best.1) {
+                    *best = (*run, j);
+                }
+            };
+            if m0 < m1 {
+                for j in i + 1..m0 {
+                    step(j, &mut run, best);
+                }
+                let (gain, loss) = (
+                    &counts[m0 + half..m1 + half],
+                    &counts[m0 - half - 1..m1 - half - 1],
+                );
+                for (j, (g, l)) in (m0..m1).zip(gain.iter().zip(loss)) {
+                    run = run + g - l;
+                    if run > best.0 || (run == best.0 && j < best.1) {
+                        *best = (run, j);
+                    }
+                }
+                for j in m1..end {
+                    step(j, &mut run, best);
+                }
+            } else {
+                for j in i + 1..end {
+                    step(j, &mut run, best);
                 }
             }
         };
         let (first, last) = (lo / BLOCK, (hi - 1) / BLOCK);
+        // The bounds, each worked out once (both passes read them).
+        let mut bounds = [0u64; MAX_BLOCKS];
+        let bounds = &mut bounds[..=last - first];
+        for (u, b) in bounds.iter_mut().zip(first..=last) {
+            *u = bound(b);
+        }
         let top = (first..=last)
             .rev()
-            .max_by_key(|&b| bound(b))
+            .max_by_key(|&b| bounds[b - first])
             .unwrap_or(first);
         // A zero sum at lo, which later bins tie but do not beat.
         let mut best = (0u64, lo);
@@ -353,7 +432,7 @@ impl LevelHistogram {
             if b == top {
                 continue;
             }
-            let u = bound(b);
+            let u = bounds[b - first];
             if u > best.0 || (u == best.0 && (b * BLOCK).max(lo) < best.1) {
                 search(b, &mut best);
             }
@@ -393,6 +472,62 @@ mod tests {
             .collect()
     }
 
+    /// `add_slice` as first written, one amplitude at a time; test oracle.
+    fn add_slice_reference(h: &mut LevelHistogram, amplitudes: &[f64]) {
+        for &a in amplitudes {
+            let i = h.table.view().bin(a);
+            h.counts[i] += 1;
+            h.blocks[i / BLOCK] += 1;
+            h.sums[i] += a.max(0.0);
+            h.first = h.first.min(i);
+            h.last = h.last.max(i);
+        }
+        h.total += amplitudes.len() as u64;
+    }
+
+    #[test]
+    fn block_counts_after_the_slice_equal_one_at_a_time() {
+        // Plateaus, noise spread over many blocks, the histogram's first and
+        // last bins, zeros, negatives and NaN, in slices of varied length.
+        let mut seed = 3u64;
+        let mut u = || {
+            seed = seed.wrapping_mul(6_364_136_223_846_793_005).wrapping_add(1);
+            (seed >> 11) as f64 / (1u64 << 53) as f64
+        };
+        let mut amps = Vec::new();
+        for k in 0..4000 {
+            let a = match (k / 500) % 4 {
+                0 => 0.3 * (1.0 + 0.001 * u()),
+                1 => 1e-3 * u(),
+                2 => [0.0, -1.0, f64::NAN, 0.5, 1e-30, 1e30][k % 6],
+                _ => 0.3 * (1.0 + 0.05 * u()),
+            };
+            amps.push(a);
+        }
+        let (mut fast, mut slow) = (LevelHistogram::new(), LevelHistogram::new());
+        let mut k = 0;
+        for len in [0, 1, 2, 7, 600, 1].iter().cycle() {
+            if k >= amps.len() {
+                break;
+            }
+            let e = (k + len).min(amps.len());
+            fast.add_slice(&amps[k..e]);
+            add_slice_reference(&mut slow, &amps[k..e]);
+            assert_eq!(fast.blocks, slow.blocks);
+            k = e;
+        }
+        assert_eq!(fast.counts, slow.counts);
+        assert_eq!(
+            fast.sums.iter().map(|v| v.to_bits()).collect::<Vec<_>>(),
+            slow.sums.iter().map(|v| v.to_bits()).collect::<Vec<_>>()
+        );
+        assert_eq!(
+            (fast.total, fast.first, fast.last),
+            (slow.total, slow.first, slow.last)
+        );
+        assert_eq!(fast.levels(), slow.levels());
+    }
+
     #[test]
     fn table_bins_equal_the_logarithm_bins() {
         // Reference: `bin_by_log`, the formula the histogram has always used.
@@ -400,7 +535,7 @@ mod tests {
         // cell's first and last value, and random amplitudes over 300 dB.
         let t = bin_table();
         let n = t.n;
-        let check = |a: f64| assert_eq!(t.bin(a), bin_by_log(a, n), "amplitude {a:e}");
+        let check = |a: f64| assert_eq!(t.view().bin(a), bin_by_log(a, n), "amplitude {a:e}");
         for &e in &t.edges[1..n] {
             let b = e.to_bits();
             for k in b - 40..=b + 40 {
