@@ -371,7 +371,7 @@ struct FitData<'a> {
 }
 
 /// Sums with the exponential term e = exp(-t / tau).
-#[derive(Clone, Copy)]
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
 struct ExpSums {
     swe: f64,
     swee: f64,
@@ -418,11 +418,50 @@ impl<'a> FitData<'a> {
         d
     }
 
-    /// The sums with e = exp(-t / tau). On a uniform grid e_i = e_0 r^i with
-    /// r = exp(-dt / tau), so each sum is e_0 (or e_0^2) times a polynomial
-    /// in r (in r^2 for sum w e e), evaluated by Horner's rule: no `exp` per
-    /// point. Agrees with the direct sums to rounding (checked in a test).
-    fn exp_sums(&self, tau: f64) -> ExpSums {
+    /// The sums with e = exp(-t / tau) for `L` time constants at once. On a
+    /// uniform grid e_i = e_0 r^i with r = exp(-dt / tau), so each sum is e_0
+    /// (or e_0^2) times a polynomial in r (in r^2 for sum w e e), evaluated
+    /// by Horner's rule: no `exp` per point. One Horner chain is
+    /// latency-bound; the `4 L` chains of one pass interleave (and
+    /// vectorize), each with the same operations in the same order as a
+    /// single time constant alone (`exp_sums_one`, checked in a test).
+    fn exp_sums<const L: usize>(&self, taus: [f64; L]) -> [ExpSums; L] {
+        if !self.uniform {
+            return taus.map(|tau| self.exp_sums_direct(tau));
+        }
+        let t = self.t;
+        let mut mul = [[0.0f64; 4]; L];
+        for (m, &tau) in mul.iter_mut().zip(&taus) {
+            let r = (-(t[1] - t[0]) / tau).exp();
+            *m = [r, r, r, r * r];
+        }
+        let mut acc = [[0.0f64; 4]; L];
+        for c in &self.coef {
+            for (a, m) in acc.iter_mut().zip(&mul) {
+                for q in 0..4 {
+                    a[q] = a[q] * m[q] + c[q];
+                }
+            }
+        }
+        let mut out = [ExpSums::default(); L];
+        for ((o, a), &tau) in out.iter_mut().zip(&acc).zip(&taus) {
+            let e0 = (-t[0] / tau).exp();
+            let swxe = e0 * a[1];
+            *o = ExpSums {
+                swe: e0 * a[0],
+                swee: e0 * e0 * a[3],
+                swxe,
+                swex: swxe,
+                swey: e0 * a[2],
+            };
+        }
+        out
+    }
+
+    /// One time constant at a time by Horner's rule: the code `exp_sums`
+    /// was derived from, kept as its oracle.
+    #[cfg(test)]
+    fn exp_sums_one(&self, tau: f64) -> ExpSums {
         if !self.uniform {
             return self.exp_sums_direct(tau);
         }
@@ -515,6 +554,107 @@ impl<'a> FitData<'a> {
 /// sampled several times per window, so this loses nothing but time).
 const FIT_STRIDE: usize = 2;
 
+/// Time constants of the coarse grid summed per pass over the trace.
+const GRID_LANES: usize = 4;
+
+/// The exponential models 2 and 3: a coarse grid of time constants, then
+/// golden-section refinement of each model's best; per model, (score, tau,
+/// beta) at the refined time constant, None when no grid point fitted.
+fn exp_search(
+    data: &FitData,
+    dur: f64,
+    score: impl Fn(f64, f64) -> f64,
+) -> [Option<(f64, f64, [f64; 3])>; 2] {
+    // Coarse grid of time constants (shared by both exponential models),
+    // then golden-section refinement for each. The exponential sums are
+    // taken for several time constants per pass (see `FitData::exp_sums`):
+    // the grid `GRID_LANES` at a time, and the two models' searches in
+    // lockstep, one time constant each per pass.
+    let models = [2u8, 3];
+    // The time constant is a parameter too.
+    let ks = models.map(|m| model_cols(m) as f64 + 1.0);
+    let sc = |i: usize, es: &ExpSums| {
+        data.fit(models[i], Some(es))
+            .map_or(f64::INFINITY, |(rss, _)| score(rss, ks[i]))
+    };
+    let mut taus: Vec<f64> = Vec::with_capacity(24);
+    let mut tau = 0.000_5;
+    while tau <= 0.3 && tau <= 3.0 * dur {
+        taus.push(tau);
+        tau *= 1.35;
+    }
+    let mut grid_best: [Option<(f64, f64)>; 2] = [None; 2];
+    for group in taus.chunks(GRID_LANES) {
+        // The last group is padded with its last time constant.
+        let mut lanes = [group[group.len() - 1]; GRID_LANES];
+        lanes[..group.len()].copy_from_slice(group);
+        let sums = data.exp_sums(lanes);
+        for (tau, es) in group.iter().zip(&sums) {
+            for (i, gb) in grid_best.iter_mut().enumerate() {
+                if let Some((rss, _)) = data.fit(models[i], Some(es)) {
+                    let s = score(rss, ks[i]);
+                    if gb.is_none_or(|g| s < g.0) {
+                        *gb = Some((s, *tau));
+                    }
+                }
+            }
+        }
+    }
+    let mut out = [None; 2];
+    if let Some(pad) = grid_best[0].or(grid_best[1]).map(|g| g.1) {
+        // A model without a grid fit searches alongside the other (its
+        // results unused), so every pass has both lanes.
+        let t0 = grid_best.map(|g| g.map_or(pad, |g| g.1));
+        let mut a = t0.map(|t| (t / 1.35).ln());
+        let mut b = t0.map(|t| (t * 1.35).ln());
+        let g = 0.618_033_988_75;
+        let mut c = [0, 1].map(|i| b[i] - g * (b[i] - a[i]));
+        let mut d = [0, 1].map(|i| a[i] + g * (b[i] - a[i]));
+        let s = data.exp_sums([c[0].exp(), d[0].exp(), c[1].exp(), d[1].exp()]);
+        let mut fc = [sc(0, &s[0]), sc(1, &s[2])];
+        let mut fd = [sc(0, &s[1]), sc(1, &s[3])];
+        for _ in 0..14 {
+            let mut next = [0.0; 2];
+            let left = [0, 1].map(|i| fc[i] < fd[i]);
+            for i in 0..2 {
+                if left[i] {
+                    b[i] = d[i];
+                    d[i] = c[i];
+                    fd[i] = fc[i];
+                    c[i] = b[i] - g * (b[i] - a[i]);
+                    next[i] = c[i];
+                } else {
+                    a[i] = c[i];
+                    c[i] = d[i];
+                    fc[i] = fd[i];
+                    d[i] = a[i] + g * (b[i] - a[i]);
+                    next[i] = d[i];
+                }
+            }
+            let s = data.exp_sums(next.map(f64::exp));
+            for i in 0..2 {
+                let v = sc(i, &s[i]);
+                if left[i] {
+                    fc[i] = v;
+                } else {
+                    fd[i] = v;
+                }
+            }
+        }
+        let tau = [0, 1].map(|i| (0.5 * (a[i] + b[i])).exp());
+        let s = data.exp_sums(tau);
+        for i in 0..2 {
+            if grid_best[i].is_none() {
+                continue;
+            }
+            out[i] = data
+                .fit(models[i], Some(&s[i]))
+                .map(|(rss, beta)| (score(rss, ks[i]), tau[i], beta));
+        }
+    }
+    out
+}
+
 /// Fits the trace and reads the chirp off the chosen model.
 pub fn chirp(tr: &Trace) -> ChirpFit {
     let n = tr.t.len();
@@ -561,52 +701,8 @@ pub fn chirp(tr: &Trace) -> ChirpFit {
             }
         }
     }
-    // Coarse grid of time constants (shared by both exponential models),
-    // then golden-section refinement for each.
-    let mut grid: Vec<(f64, ExpSums)> = Vec::with_capacity(24);
-    let mut tau = 0.000_5;
-    while tau <= 0.3 && tau <= 3.0 * dur {
-        grid.push((tau, data.exp_sums(tau)));
-        tau *= 1.35;
-    }
-    for model in [2u8, 3] {
-        let k = model_cols(model) as f64 + 1.0; // the time constant is a parameter too
-        let eval = |tau: f64| {
-            data.fit(model, Some(&data.exp_sums(tau)))
-                .map(|(rss, b)| (score(rss, k), b))
-        };
-        let mut grid_best: Option<(f64, f64)> = None;
-        for (tau, es) in &grid {
-            if let Some((rss, _)) = data.fit(model, Some(es)) {
-                let sc = score(rss, k);
-                if grid_best.is_none_or(|g| sc < g.0) {
-                    grid_best = Some((sc, *tau));
-                }
-            }
-        }
-        let Some((_, t0)) = grid_best else { continue };
-        let (mut a, mut b) = ((t0 / 1.35).ln(), (t0 * 1.35).ln());
-        let g = 0.618_033_988_75;
-        let sc = |lt: f64| eval(lt.exp()).map_or(f64::INFINITY, |v| v.0);
-        let (mut c, mut d) = (b - g * (b - a), a + g * (b - a));
-        let (mut fc, mut fd) = (sc(c), sc(d));
-        for _ in 0..14 {
-            if fc < fd {
-                b = d;
-                d = c;
-                fd = fc;
-                c = b - g * (b - a);
-                fc = sc(c);
-            } else {
-                a = c;
-                c = d;
-                fc = fd;
-                d = a + g * (b - a);
-                fd = sc(d);
-            }
-        }
-        let tau = (0.5 * (a + b)).exp();
-        if let Some((s2, beta)) = eval(tau) {
+    for (model, r) in [2u8, 3].into_iter().zip(exp_search(&data, dur, score)) {
+        if let Some((s2, tau, beta)) = r {
             if s2 < best.0 {
                 best = (s2, model, tau, beta);
             }
@@ -803,7 +899,7 @@ mod tests {
         assert!(d.uniform);
         let close = |a: f64, b: f64, scale: f64| (a - b).abs() <= 1e-12 * scale;
         for tau in [0.000_5, 0.0011, 0.004, 0.02, 0.1, 0.3] {
-            let (p, q) = (d.exp_sums(tau), d.exp_sums_direct(tau));
+            let (p, q) = (d.exp_sums_one(tau), d.exp_sums_direct(tau));
             // Scales: the sums of absolute terms.
             let sa = q.swe;
             let sx: f64 = t
@@ -825,6 +921,126 @@ mod tests {
             );
             assert!(close(p.swey, q.swey, sy), "{tau}");
         }
+    }
+
+    /// The search `exp_search` was derived from: the grid one time constant
+    /// per pass, then each model's golden section alone; test oracle.
+    fn exp_search_reference(
+        data: &FitData,
+        dur: f64,
+        score: impl Fn(f64, f64) -> f64,
+    ) -> [Option<(f64, f64, [f64; 3])>; 2] {
+        let mut out = [None; 2];
+        let mut grid: Vec<(f64, ExpSums)> = Vec::with_capacity(24);
+        let mut tau = 0.000_5;
+        while tau <= 0.3 && tau <= 3.0 * dur {
+            grid.push((tau, data.exp_sums_one(tau)));
+            tau *= 1.35;
+        }
+        for (o, model) in out.iter_mut().zip([2u8, 3]) {
+            let k = model_cols(model) as f64 + 1.0;
+            let eval = |tau: f64| {
+                data.fit(model, Some(&data.exp_sums_one(tau)))
+                    .map(|(rss, b)| (score(rss, k), b))
+            };
+            let mut grid_best: Option<(f64, f64)> = None;
+            for (tau, es) in &grid {
+                if let Some((rss, _)) = data.fit(model, Some(es)) {
+                    let sc = score(rss, k);
+                    if grid_best.is_none_or(|g| sc < g.0) {
+                        grid_best = Some((sc, *tau));
+                    }
+                }
+            }
+            let Some((_, t0)) = grid_best else { continue };
+            let (mut a, mut b) = ((t0 / 1.35).ln(), (t0 * 1.35).ln());
+            let g = 0.618_033_988_75;
+            let sc = |lt: f64| eval(lt.exp()).map_or(f64::INFINITY, |v| v.0);
+            let (mut c, mut d) = (b - g * (b - a), a + g * (b - a));
+            let (mut fc, mut fd) = (sc(c), sc(d));
+            for _ in 0..14 {
+                if fc < fd {
+                    b = d;
+                    d = c;
+                    fd = fc;
+                    c = b - g * (b - a);
+                    fc = sc(c);
+                } else {
+                    a = c;
+                    c = d;
+                    fc = fd;
+                    d = a + g * (b - a);
+                    fd = sc(d);
+                }
+            }
+            let tau = (0.5 * (a + b)).exp();
+            *o = eval(tau).map(|(s2, beta)| (s2, tau, beta));
+        }
+        out
+    }
+
+    #[test]
+    fn batched_exp_sums_equal_one_at_a_time() {
+        // Several time constants per pass against one per pass: the same
+        // operations per time constant, so bit-identical.
+        let (fs, mut c) = (12_000.0, 77.7);
+        let t0 = c;
+        let mut t = Vec::new();
+        for _ in 0..233 {
+            t.push((c - t0) / fs + 0.000_25);
+            c += 6.0;
+        }
+        let f: Vec<f64> = (0..t.len())
+            .map(|i| ((i * 7919) % 13) as f64 - 6.0)
+            .collect();
+        let w: Vec<f64> = (0..t.len())
+            .map(|i| 0.5 + ((i * 31) % 7) as f64 * 0.1)
+            .collect();
+        let d = FitData::new(&t, &f, &w, t[t.len() - 1] / 2.0);
+        assert!(d.uniform);
+        let taus = [0.000_5, 0.0011, 0.004, 0.02, 0.1, 0.3, 0.0007, 1e-5];
+        let one = taus.map(|tau| d.exp_sums_one(tau));
+        assert_eq!(d.exp_sums(taus), one);
+        assert_eq!(d.exp_sums([taus[2], taus[5]]), [one[2], one[5]]);
+        assert_eq!(d.exp_sums([taus[1]]), [one[1]]);
+    }
+
+    #[test]
+    fn lockstep_search_equals_the_plain_search() {
+        // Grid in groups and the two golden sections in lockstep against the
+        // plain search: the same sums and comparisons, so identical results,
+        // on chirped, flat, drifting and short traces, uniform or not.
+        let mut cases: Vec<Trace> = Vec::new();
+        for (n, seed) in [(2400, 1u64), (900, 2), (5000, 3), (260, 4), (130, 5)] {
+            let z = noisy_tone(12_000.0, n, seed);
+            cases.push(trace(&z, 12_000.0, 40.0, n as f64 - 41.0));
+        }
+        let z = tone(12_000.0, 3000, |t| -3.0 + 40.0 * t);
+        cases.push(trace(&z, 12_000.0, 40.0, 2950.0));
+        let z = tone(12_000.0, 3000, |_| 2.0);
+        cases.push(trace(&z, 12_000.0, 40.0, 2950.0));
+        // Not uniform: the direct sums.
+        let mut nu = cases[0].clone();
+        for (i, x) in nu.t.iter_mut().enumerate() {
+            *x += 1e-6 * (i % 3) as f64;
+        }
+        cases.push(nu);
+        let mut searched = 0;
+        for tr in &cases {
+            let n = tr.t.len();
+            let dur = tr.t[n - 1];
+            let m = n.div_ceil(FIT_STRIDE);
+            let pick = |v: &[f64]| v.iter().step_by(FIT_STRIDE).copied().collect::<Vec<_>>();
+            let (t, f, w) = (pick(&tr.t), pick(&tr.f), pick(&tr.w));
+            let data = FitData::new(&t, &f, &w, dur / 2.0);
+            let n_eff = (dur / TRACE_WINDOW_S).max(2.0);
+            let score = |rss: f64, k: f64| n_eff * (rss.max(1e-18) / m as f64).ln() + k * 2.0;
+            let fast = exp_search(&data, dur, score);
+            let slow = exp_search_reference(&data, dur, score);
+            assert_eq!(fast, slow, "{n}");
+            searched += fast.iter().flatten().count();
+        }
+        assert!(searched >= 12, "{searched}");
     }
 
     #[test]
@@ -849,7 +1065,7 @@ mod tests {
         for model in 0..4u8 {
             for tau in [0.0007, 0.004, 0.02, 0.1] {
                 let slow = fit_model(model, tau, &t, &f, &w, mid).unwrap();
-                let es = d.exp_sums(tau);
+                let [es] = d.exp_sums([tau]);
                 let fast = d.fit(model, Some(&es)).unwrap();
                 // RSS = sum(w y^2) - beta . X'Wy cancels: rounding is
                 // relative to sum(w y^2).
