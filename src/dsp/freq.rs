@@ -63,7 +63,30 @@ fn kay_from_products(p: &[Complex64], w: &[f64], fs: f64) -> (f64, f64) {
     for (pk, wk) in p.iter().zip(w) {
         acc += pk * *wk;
     }
-    (acc.arg() * fs / (2.0 * PI), acc.norm())
+    kay_finish(acc, fs)
+}
+
+/// Windows of `kay_sums` per pass.
+const KAY_LANES: usize = 4;
+
+/// The weighted sums of `kay_from_products` for `L` windows of `p` at once
+/// (starting at `offs`): one window's sum is a serial chain of additions,
+/// `L` of them interleave. Each sum adds the same terms in the same order.
+fn kay_sums<const L: usize>(p: &[Complex64], offs: [usize; L], w: &[f64]) -> [Complex64; L] {
+    let win = offs.map(|o| &p[o..o + w.len()]);
+    let mut acc = [Complex64::new(0.0, 0.0); L];
+    for (j, &wk) in w.iter().enumerate() {
+        for (a, pw) in acc.iter_mut().zip(&win) {
+            *a += pw[j] * wk;
+        }
+    }
+    acc
+}
+
+/// Frequency (Hz) and weight of a Kay sum. The weight |acc| is the square
+/// root of |acc|²: the sums are far from overflow, and `hypot` is slow.
+fn kay_finish(acc: Complex64, fs: f64) -> (f64, f64) {
+    (acc.arg() * fs / (2.0 * PI), acc.norm_sqr().sqrt())
 }
 
 /// Frequency trace of one element.
@@ -92,6 +115,8 @@ struct Scratch {
     /// The pre-filtered baseband over the stretch the windows read.
     zf: Vec<Complex32>,
     prod: Vec<Complex64>,
+    /// First sample of each trace point's window.
+    starts: Vec<usize>,
 }
 
 thread_local! {
@@ -99,22 +124,42 @@ thread_local! {
 }
 
 /// Outputs per block of the pre-filter: the accumulators stay in registers
-/// and the compiler vectorizes across the block.
+/// and the compiler vectorizes across the block (twice as many with AVX's
+/// wider registers).
 const CONV_BLOCK: usize = 16;
+#[cfg(target_arch = "x86_64")]
+const CONV_BLOCK_AVX: usize = 32;
 
 /// `out[i] = sum_j k[j] src[i + j]`, taps added in kernel order from 0.0 (so
 /// each output is the same sum as one computed alone); `src.len()` must be
 /// `out.len() + k.len() - 1`.
 fn convolve_valid(src: &[f64], k: &[f64], out: &mut [f64]) {
-    let m = out.len();
-    let full = m - m % CONV_BLOCK;
-    for (b0, ob) in (0..full)
-        .step_by(CONV_BLOCK)
-        .zip(out.chunks_exact_mut(CONV_BLOCK))
+    #[cfg(target_arch = "x86_64")]
     {
-        let seg = &src[b0..b0 + CONV_BLOCK + k.len() - 1];
-        let mut acc = [0.0f64; CONV_BLOCK];
-        for (win, &w) in seg.windows(CONV_BLOCK).zip(k) {
+        if std::arch::is_x86_feature_detected!("avx") {
+            // SAFETY: the CPU reported AVX.
+            return unsafe { convolve_valid_avx(src, k, out) };
+        }
+    }
+    convolve_valid_body::<CONV_BLOCK>(src, k, out)
+}
+
+/// `convolve_valid` compiled for AVX: four outputs per instruction instead
+/// of two, the same operations (no fused multiply-adds), so the same sums.
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx")]
+fn convolve_valid_avx(src: &[f64], k: &[f64], out: &mut [f64]) {
+    convolve_valid_body::<CONV_BLOCK_AVX>(src, k, out)
+}
+
+#[inline(always)]
+fn convolve_valid_body<const B: usize>(src: &[f64], k: &[f64], out: &mut [f64]) {
+    let m = out.len();
+    let full = m - m % B;
+    for (b0, ob) in (0..full).step_by(B).zip(out.chunks_exact_mut(B)) {
+        let seg = &src[b0..b0 + B + k.len() - 1];
+        let mut acc = [0.0f64; B];
+        for (win, &w) in seg.windows(B).zip(k) {
             for (a, v) in acc.iter_mut().zip(win) {
                 *a += v * w;
             }
@@ -168,10 +213,13 @@ fn trace_with(sc: &mut Scratch, z: &[Complex32], fs: f64, t50r: f64, t50f: f64) 
         }
     }
     // The few outputs near the ends of `z`, with a partial kernel.
-    for (i, o) in (lo..hi).zip(zf.iter_mut()) {
-        if i >= a && i < b {
-            continue;
-        }
+    let ends = if a < b {
+        [lo..a, b..hi]
+    } else {
+        [lo..hi, hi..hi]
+    };
+    for i in ends.into_iter().flatten() {
+        let o = &mut zf[i - lo];
         let mut acc = Complex64::new(0.0, 0.0);
         for (j, w) in k.iter().enumerate() {
             if let Some(v) = (i + j).checked_sub(h).and_then(|q| z.get(q)) {
@@ -194,31 +242,53 @@ fn trace_with(sc: &mut Scratch, z: &[Complex32], fs: f64, t50r: f64, t50f: f64) 
     out.t.reserve(cap);
     out.f.reserve(cap);
     out.w.reserve(cap);
+    // The windows' starts first, then their sums several at a time.
+    let starts = &mut sc.starts;
+    starts.clear();
     let mut c = t50r;
     while c <= t50f {
         let start = (c - (n as f64 - 1.0) / 2.0).round();
         if start >= 0.0 && (start as usize) + n <= z.len() {
-            let s0 = start as usize;
-            let (f, wt) = if s0 >= lo && s0 + w.len() <= p_hi {
-                kay_from_products(&prod[s0 - lo..s0 - lo + w.len()], &w, fs)
-            } else {
-                // Not reached for 50 % instants inside `z`; kept for safety.
-                let zp: Vec<Complex32> = (s0..s0 + n)
-                    .map(|i| {
-                        i.checked_sub(lo)
-                            .filter(|&q| q < hi - lo)
-                            .and_then(|q| zf.get(q))
-                            .copied()
-                            .unwrap_or_default()
-                    })
-                    .collect();
-                kay_frequency(&zp, 0, &w, fs)
-            };
+            starts.push(start as usize);
             out.t.push((c - t50r) / fs);
-            out.f.push(f);
-            out.w.push(wt);
         }
         c += step;
+    }
+    // Windows that read the shared products.
+    let shared = |s0: usize| s0 >= lo && s0 + w.len() <= p_hi;
+    let mut i = 0;
+    while i < starts.len() {
+        if let Some(g) = starts.get(i..i + KAY_LANES) {
+            if g.iter().all(|&s0| shared(s0)) {
+                let offs: [usize; KAY_LANES] = std::array::from_fn(|l| g[l] - lo);
+                for acc in kay_sums(prod, offs, &w) {
+                    let (f, wt) = kay_finish(acc, fs);
+                    out.f.push(f);
+                    out.w.push(wt);
+                }
+                i += KAY_LANES;
+                continue;
+            }
+        }
+        let s0 = starts[i];
+        let (f, wt) = if shared(s0) {
+            kay_from_products(&prod[s0 - lo..s0 - lo + w.len()], &w, fs)
+        } else {
+            // Not reached for 50 % instants inside `z`; kept for safety.
+            let zp: Vec<Complex32> = (s0..s0 + n)
+                .map(|i| {
+                    i.checked_sub(lo)
+                        .filter(|&q| q < hi - lo)
+                        .and_then(|q| zf.get(q))
+                        .copied()
+                        .unwrap_or_default()
+                })
+                .collect();
+            kay_frequency(&zp, 0, &w, fs)
+        };
+        out.f.push(f);
+        out.w.push(wt);
+        i += 1;
     }
     out
 }
@@ -371,7 +441,7 @@ struct FitData<'a> {
 }
 
 /// Sums with the exponential term e = exp(-t / tau).
-#[derive(Clone, Copy)]
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
 struct ExpSums {
     swe: f64,
     swee: f64,
@@ -418,11 +488,37 @@ impl<'a> FitData<'a> {
         d
     }
 
-    /// The sums with e = exp(-t / tau). On a uniform grid e_i = e_0 r^i with
-    /// r = exp(-dt / tau), so each sum is e_0 (or e_0^2) times a polynomial
-    /// in r (in r^2 for sum w e e), evaluated by Horner's rule: no `exp` per
-    /// point. Agrees with the direct sums to rounding (checked in a test).
-    fn exp_sums(&self, tau: f64) -> ExpSums {
+    /// The sums with e = exp(-t / tau) for `L` time constants at once. On a
+    /// uniform grid e_i = e_0 r^i with r = exp(-dt / tau), so each sum is e_0
+    /// (or e_0^2) times a polynomial in r (in r^2 for sum w e e), evaluated
+    /// by Horner's rule: no `exp` per point. One Horner chain is
+    /// latency-bound; the `4 L` chains of one pass interleave (and
+    /// vectorize), each with the same operations in the same order as a
+    /// single time constant alone (`exp_sums_one`, checked in a test).
+    fn exp_sums<const L: usize>(&self, taus: [f64; L]) -> [ExpSums; L] {
+        if !self.uniform {
+            return taus.map(|tau| self.exp_sums_direct(tau));
+        }
+        let t = self.t;
+        let r = taus.map(|tau| (-(t[1] - t[0]) / tau).exp());
+        let acc = horner(&self.coef, r);
+        std::array::from_fn(|l| {
+            let e0 = (-t[0] / taus[l]).exp();
+            let swxe = e0 * acc[1][l];
+            ExpSums {
+                swe: e0 * acc[0][l],
+                swee: e0 * e0 * acc[3][l],
+                swxe,
+                swex: swxe,
+                swey: e0 * acc[2][l],
+            }
+        })
+    }
+
+    /// One time constant at a time by Horner's rule: the code `exp_sums`
+    /// was derived from, kept as its oracle.
+    #[cfg(test)]
+    fn exp_sums_one(&self, tau: f64) -> ExpSums {
         if !self.uniform {
             return self.exp_sums_direct(tau);
         }
@@ -511,9 +607,223 @@ impl<'a> FitData<'a> {
     }
 }
 
+/// Horner's rule for `L` time constants: per lane l, the four polynomials
+/// with coefficients `coef[..][q]` (highest power first) at r[l] (at r[l]²
+/// for q = 3), in the operations of one polynomial alone.
+fn horner<const L: usize>(coef: &[[f64; 4]], r: [f64; L]) -> [[f64; L]; 4] {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if std::arch::is_x86_feature_detected!("avx") {
+            // SAFETY: the CPU reported AVX.
+            return unsafe { horner_avx(coef, r) };
+        }
+    }
+    horner_body(coef, r)
+}
+
+/// `horner` compiled for AVX: four lanes per instruction, the same
+/// operations (no fused multiply-adds), so the same sums.
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx")]
+fn horner_avx<const L: usize>(coef: &[[f64; 4]], r: [f64; L]) -> [[f64; L]; 4] {
+    horner_body(coef, r)
+}
+
+#[inline(always)]
+fn horner_body<const L: usize>(coef: &[[f64; 4]], r: [f64; L]) -> [[f64; L]; 4] {
+    // Sum-major (acc[q][l]): each coefficient is broadcast over the lanes,
+    // which the compiler keeps in vector registers.
+    let mul = [r, r, r, r.map(|r| r * r)];
+    let mut acc = [[0.0f64; L]; 4];
+    for c in coef {
+        for q in 0..4 {
+            for l in 0..L {
+                acc[q][l] = acc[q][l] * mul[q][l] + c[q];
+            }
+        }
+    }
+    acc
+}
+
 /// Points of the trace used for fitting: every other one (the trace is
 /// sampled several times per window, so this loses nothing but time).
 const FIT_STRIDE: usize = 2;
+
+/// Time constants of the coarse grid summed per pass over the trace.
+const GRID_LANES: usize = 8;
+
+/// The exponential models 2 and 3: a coarse grid of time constants, then
+/// golden-section refinement of each model's best; per model, (score, tau,
+/// beta) at the refined time constant, None when no grid point fitted.
+fn exp_search(
+    data: &FitData,
+    dur: f64,
+    score: impl Fn(f64, f64) -> f64,
+) -> [Option<(f64, f64, [f64; 3])>; 2] {
+    // Coarse grid of time constants (shared by both exponential models),
+    // then golden-section refinement for each. The exponential sums are
+    // taken for several time constants per pass (see `FitData::exp_sums`):
+    // the grid `GRID_LANES` at a time, and the two models' searches in
+    // lockstep.
+    let models = [2u8, 3];
+    // The time constant is a parameter too.
+    let ks = models.map(|m| model_cols(m) as f64 + 1.0);
+    let sc = |i: usize, es: &ExpSums| {
+        data.fit(models[i], Some(es))
+            .map_or(f64::INFINITY, |(rss, _)| score(rss, ks[i]))
+    };
+    let mut taus: Vec<f64> = Vec::with_capacity(24);
+    let mut tau = 0.000_5;
+    while tau <= 0.3 && tau <= 3.0 * dur {
+        taus.push(tau);
+        tau *= 1.35;
+    }
+    let mut grid_best: [Option<(f64, f64)>; 2] = [None; 2];
+    for group in taus.chunks(GRID_LANES) {
+        // The last group is padded with its last time constant.
+        let mut lanes = [group[group.len() - 1]; GRID_LANES];
+        lanes[..group.len()].copy_from_slice(group);
+        let sums = data.exp_sums(lanes);
+        for (tau, es) in group.iter().zip(&sums) {
+            for (i, gb) in grid_best.iter_mut().enumerate() {
+                if let Some((rss, _)) = data.fit(models[i], Some(es)) {
+                    let s = score(rss, ks[i]);
+                    if gb.is_none_or(|g| s < g.0) {
+                        *gb = Some((s, *tau));
+                    }
+                }
+            }
+        }
+    }
+    let mut out = [None; 2];
+    let Some(pad) = grid_best[0].or(grid_best[1]).map(|g| g.1) else {
+        return out;
+    };
+    // A model without a grid fit searches alongside the other (its results
+    // unused), so every pass has both models' lanes.
+    let mut st = grid_best.map(|g| Golden::new(g.map_or(pad, |g| g.1)));
+    // Each step's comparison needs the previous step's value, so each pass
+    // also takes both points the step after could try: two steps per pass.
+    // First pass: the two interior points, and both first steps.
+    let lanes = |s: &Golden| {
+        let (l, r) = (s.narrowed(true), s.narrowed(false));
+        [s.c, s.d, l.newest(), r.newest()]
+    };
+    let l = st.each_ref().map(lanes);
+    let s = data.exp_sums::<8>(std::array::from_fn(|j| l[j / 4][j % 4].exp()));
+    for (i, g) in st.iter_mut().enumerate() {
+        (g.fc, g.fd) = (sc(i, &s[4 * i]), sc(i, &s[4 * i + 1]));
+        let left = g.fc < g.fd;
+        *g = g.narrowed(left);
+        g.set(sc(i, &s[4 * i + if left { 2 } else { 3 }]));
+    }
+    // Steps 2 to 13 in pairs: each pass takes the next step's point (its
+    // comparison is known) and both points of the step after it.
+    for _ in 0..(GOLDEN_STEPS - 2) / 2 {
+        let nx = st.map(|g| g.narrowed(g.fc < g.fd));
+        let lanes = |g: &Golden| {
+            let (l, r) = (g.narrowed(true), g.narrowed(false));
+            [g.newest(), l.newest(), r.newest()]
+        };
+        let l = nx.each_ref().map(lanes);
+        let s = data.exp_sums::<6>(std::array::from_fn(|j| l[j / 3][j % 3].exp()));
+        for (i, (g, n)) in st.iter_mut().zip(nx).enumerate() {
+            *g = n;
+            g.set(sc(i, &s[3 * i]));
+            let left = g.fc < g.fd;
+            *g = g.narrowed(left);
+            g.set(sc(i, &s[3 * i + if left { 1 } else { 2 }]));
+        }
+    }
+    // The last step narrows the bracket; the value at its new point is
+    // never compared, so it is not taken.
+    let tau = st.map(|g| {
+        let g = g.narrowed(g.fc < g.fd);
+        (0.5 * (g.a + g.b)).exp()
+    });
+    let s = data.exp_sums(tau);
+    for i in 0..2 {
+        if grid_best[i].is_none() {
+            continue;
+        }
+        out[i] = data
+            .fit(models[i], Some(&s[i]))
+            .map(|(rss, beta)| (score(rss, ks[i]), tau[i], beta));
+    }
+    out
+}
+
+/// Golden-section steps of the time-constant refinement (even: `exp_search`
+/// takes them one, then two per pass, then one).
+const GOLDEN_STEPS: usize = 14;
+const _: () = assert!(GOLDEN_STEPS >= 2 && GOLDEN_STEPS.is_multiple_of(2));
+
+/// One model's golden-section search on ln(tau): bracket [a, b], interior
+/// points c < d with their scores.
+#[derive(Clone, Copy)]
+struct Golden {
+    a: f64,
+    b: f64,
+    c: f64,
+    d: f64,
+    fc: f64,
+    fd: f64,
+    /// Whether the newest point is c (else d).
+    left: bool,
+}
+
+impl Golden {
+    const G: f64 = 0.618_033_988_75;
+
+    /// The bracket one grid step either side of the grid's best `t0`.
+    fn new(t0: f64) -> Golden {
+        let (a, b) = ((t0 / 1.35).ln(), (t0 * 1.35).ln());
+        Golden {
+            a,
+            b,
+            c: b - Self::G * (b - a),
+            d: a + Self::G * (b - a),
+            fc: f64::NAN,
+            fd: f64::NAN,
+            left: false,
+        }
+    }
+
+    /// One step: drops [d, b] when `left` (fc < fd), else [a, c], and
+    /// places a new interior point, whose score `set` fills in.
+    fn narrowed(&self, left: bool) -> Golden {
+        let mut g = *self;
+        g.left = left;
+        if left {
+            g.b = g.d;
+            g.d = g.c;
+            g.fd = g.fc;
+            g.c = g.b - Self::G * (g.b - g.a);
+        } else {
+            g.a = g.c;
+            g.c = g.d;
+            g.fc = g.fd;
+            g.d = g.a + Self::G * (g.b - g.a);
+        }
+        g
+    }
+
+    fn newest(&self) -> f64 {
+        if self.left {
+            self.c
+        } else {
+            self.d
+        }
+    }
+
+    fn set(&mut self, v: f64) {
+        if self.left {
+            self.fc = v;
+        } else {
+            self.fd = v;
+        }
+    }
+}
 
 /// Fits the trace and reads the chirp off the chosen model.
 pub fn chirp(tr: &Trace) -> ChirpFit {
@@ -561,52 +871,8 @@ pub fn chirp(tr: &Trace) -> ChirpFit {
             }
         }
     }
-    // Coarse grid of time constants (shared by both exponential models),
-    // then golden-section refinement for each.
-    let mut grid: Vec<(f64, ExpSums)> = Vec::with_capacity(24);
-    let mut tau = 0.000_5;
-    while tau <= 0.3 && tau <= 3.0 * dur {
-        grid.push((tau, data.exp_sums(tau)));
-        tau *= 1.35;
-    }
-    for model in [2u8, 3] {
-        let k = model_cols(model) as f64 + 1.0; // the time constant is a parameter too
-        let eval = |tau: f64| {
-            data.fit(model, Some(&data.exp_sums(tau)))
-                .map(|(rss, b)| (score(rss, k), b))
-        };
-        let mut grid_best: Option<(f64, f64)> = None;
-        for (tau, es) in &grid {
-            if let Some((rss, _)) = data.fit(model, Some(es)) {
-                let sc = score(rss, k);
-                if grid_best.is_none_or(|g| sc < g.0) {
-                    grid_best = Some((sc, *tau));
-                }
-            }
-        }
-        let Some((_, t0)) = grid_best else { continue };
-        let (mut a, mut b) = ((t0 / 1.35).ln(), (t0 * 1.35).ln());
-        let g = 0.618_033_988_75;
-        let sc = |lt: f64| eval(lt.exp()).map_or(f64::INFINITY, |v| v.0);
-        let (mut c, mut d) = (b - g * (b - a), a + g * (b - a));
-        let (mut fc, mut fd) = (sc(c), sc(d));
-        for _ in 0..14 {
-            if fc < fd {
-                b = d;
-                d = c;
-                fd = fc;
-                c = b - g * (b - a);
-                fc = sc(c);
-            } else {
-                a = c;
-                c = d;
-                fc = fd;
-                d = a + g * (b - a);
-                fd = sc(d);
-            }
-        }
-        let tau = (0.5 * (a + b)).exp();
-        if let Some((s2, beta)) = eval(tau) {
+    for (model, r) in [2u8, 3].into_iter().zip(exp_search(&data, dur, score)) {
+        if let Some((s2, tau, beta)) = r {
             if s2 < best.0 {
                 best = (s2, model, tau, beta);
             }
@@ -651,6 +917,16 @@ pub fn chirp(tr: &Trace) -> ChirpFit {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// Kay's estimate one window at a time, the weight by `hypot`: the
+    /// `kay_from_products` `trace` was derived from; test oracle.
+    fn kay_reference(p: &[Complex64], w: &[f64], fs: f64) -> (f64, f64) {
+        let mut acc = Complex64::new(0.0, 0.0);
+        for (pk, wk) in p.iter().zip(w) {
+            acc += pk * *wk;
+        }
+        (acc.arg() * fs / (2.0 * PI), acc.norm())
+    }
 
     /// The plain pre-filter and trace `trace` was derived from; test oracle.
     fn trace_reference(z: &[Complex32], fs: f64, t50r: f64, t50f: f64) -> Trace {
@@ -712,9 +988,13 @@ mod tests {
                 let s0 = start as usize;
                 // Windows inside the filtered stretch read the shared products.
                 let (f, wt) = if s0 >= p_lo && s0 + w.len() <= p_hi {
-                    kay_from_products(&prod[s0 - p_lo..s0 - p_lo + w.len()], &w, fs)
+                    kay_reference(&prod[s0 - p_lo..s0 - p_lo + w.len()], &w, fs)
                 } else {
-                    kay_frequency(z, s0, &w, fs)
+                    let p: Vec<Complex64> = z[s0..s0 + n]
+                        .windows(2)
+                        .map(|pair| lag_product(pair[0], pair[1]))
+                        .collect();
+                    kay_reference(&p, &w, fs)
                 };
                 out.t.push((c - t50r) / fs);
                 out.f.push(f);
@@ -759,10 +1039,34 @@ mod tests {
     }
 
     #[test]
+    fn dispatched_kernels_equal_their_plain_builds() {
+        // The AVX builds (taken on this CPU when it has AVX) against the
+        // plain ones: the same operations, so bit-identical.
+        let k = crate::dsp::edges::gaussian_kernel(PREFILTER_SIGMA_S * 12_000.0);
+        for m in [0, 1, 15, 16, 33, 70, 901] {
+            let src: Vec<f64> = (0..m + k.len() - 1)
+                .map(|i| ((i * 7919) % 101) as f64 - 50.3)
+                .collect();
+            let (mut a, mut b) = (vec![0.0; m], vec![0.0; m]);
+            convolve_valid(&src, &k, &mut a);
+            convolve_valid_body::<CONV_BLOCK>(&src, &k, &mut b);
+            assert_eq!(a, b, "{m}");
+        }
+        let coef: Vec<[f64; 4]> = (0..157)
+            .map(|i| [1.0, i as f64 * 0.3 - 20.0, ((i * 31) % 7) as f64, 0.5])
+            .collect();
+        let r = [0.99, 0.9, 0.5, 0.999, 0.7, 0.1, 0.95, 0.8];
+        assert_eq!(horner(&coef, r), horner_body(&coef, r));
+        assert_eq!(horner(&coef, [0.97, 0.6]), horner_body(&coef, [0.97, 0.6]));
+    }
+
+    #[test]
     fn blocked_trace_equals_the_plain_trace() {
         // Fast path against the slow obvious one: the same sums in the same
-        // order, so the traces are identical, including windows near the
-        // ends of `z` where the pre-filter's kernel is cut.
+        // order, so the times and frequencies are identical, including
+        // windows near the ends of `z` where the pre-filter's kernel is cut.
+        // The weights differ by `hypot` against sqrt(re² + im²): within a
+        // few units in the last place (each correctly rounded or nearly).
         for (fs, n) in [(12_000.0, 2000), (12_000.0, 150), (8_000.0, 997)] {
             let z = noisy_tone(fs, n, n as u64);
             for (r, f) in [
@@ -772,11 +1076,12 @@ mod tests {
                 (n as f64 / 3.0, n as f64 / 2.0),
                 (5.0, n as f64 + 3.0),
             ] {
-                assert_eq!(
-                    trace(&z, fs, r, f),
-                    trace_reference(&z, fs, r, f),
-                    "{fs} {n} {r} {f}"
-                );
+                let (a, b) = (trace(&z, fs, r, f), trace_reference(&z, fs, r, f));
+                assert_eq!((&a.t, &a.f), (&b.t, &b.f), "{fs} {n} {r} {f}");
+                assert_eq!(a.w.len(), b.w.len());
+                for (x, y) in a.w.iter().zip(&b.w) {
+                    assert!((x - y).abs() <= 4.0 * f64::EPSILON * y, "{x} {y}");
+                }
             }
         }
     }
@@ -803,7 +1108,7 @@ mod tests {
         assert!(d.uniform);
         let close = |a: f64, b: f64, scale: f64| (a - b).abs() <= 1e-12 * scale;
         for tau in [0.000_5, 0.0011, 0.004, 0.02, 0.1, 0.3] {
-            let (p, q) = (d.exp_sums(tau), d.exp_sums_direct(tau));
+            let (p, q) = (d.exp_sums_one(tau), d.exp_sums_direct(tau));
             // Scales: the sums of absolute terms.
             let sa = q.swe;
             let sx: f64 = t
@@ -825,6 +1130,154 @@ mod tests {
             );
             assert!(close(p.swey, q.swey, sy), "{tau}");
         }
+    }
+
+    /// The search `exp_search` was derived from: the grid one time constant
+    /// per pass, then each model's golden section alone; test oracle.
+    fn exp_search_reference(
+        data: &FitData,
+        dur: f64,
+        score: impl Fn(f64, f64) -> f64,
+    ) -> [Option<(f64, f64, [f64; 3])>; 2] {
+        let mut out = [None; 2];
+        let mut grid: Vec<(f64, ExpSums)> = Vec::with_capacity(24);
+        let mut tau = 0.000_5;
+        while tau <= 0.3 && tau <= 3.0 * dur {
+            grid.push((tau, data.exp_sums_one(tau)));
+            tau *= 1.35;
+        }
+        for (o, model) in out.iter_mut().zip([2u8, 3]) {
+            let k = model_cols(model) as f64 + 1.0;
+            let eval = |tau: f64| {
+                data.fit(model, Some(&data.exp_sums_one(tau)))
+                    .map(|(rss, b)| (score(rss, k), b))
+            };
+            let mut grid_best: Option<(f64, f64)> = None;
+            for (tau, es) in &grid {
+                if let Some((rss, _)) = data.fit(model, Some(es)) {
+                    let sc = score(rss, k);
+                    if grid_best.is_none_or(|g| sc < g.0) {
+                        grid_best = Some((sc, *tau));
+                    }
+                }
+            }
+            let Some((_, t0)) = grid_best else { continue };
+            let (mut a, mut b) = ((t0 / 1.35).ln(), (t0 * 1.35).ln());
+            let g = 0.618_033_988_75;
+            let sc = |lt: f64| eval(lt.exp()).map_or(f64::INFINITY, |v| v.0);
+            let (mut c, mut d) = (b - g * (b - a), a + g * (b - a));
+            let (mut fc, mut fd) = (sc(c), sc(d));
+            for _ in 0..14 {
+                if fc < fd {
+                    b = d;
+                    d = c;
+                    fd = fc;
+                    c = b - g * (b - a);
+                    fc = sc(c);
+                } else {
+                    a = c;
+                    c = d;
+                    fc = fd;
+                    d = a + g * (b - a);
+                    fd = sc(d);
+                }
+            }
+            let tau = (0.5 * (a + b)).exp();
+            *o = eval(tau).map(|(s2, beta)| (s2, tau, beta));
+        }
+        out
+    }
+
+    #[test]
+    fn batched_exp_sums_equal_one_at_a_time() {
+        // Several time constants per pass against one per pass: the same
+        // operations per time constant, so bit-identical.
+        let (fs, mut c) = (12_000.0, 77.7);
+        let t0 = c;
+        let mut t = Vec::new();
+        for _ in 0..233 {
+            t.push((c - t0) / fs + 0.000_25);
+            c += 6.0;
+        }
+        let f: Vec<f64> = (0..t.len())
+            .map(|i| ((i * 7919) % 13) as f64 - 6.0)
+            .collect();
+        let w: Vec<f64> = (0..t.len())
+            .map(|i| 0.5 + ((i * 31) % 7) as f64 * 0.1)
+            .collect();
+        let d = FitData::new(&t, &f, &w, t[t.len() - 1] / 2.0);
+        assert!(d.uniform);
+        let taus = [0.000_5, 0.0011, 0.004, 0.02, 0.1, 0.3, 0.0007, 1e-5];
+        let one = taus.map(|tau| d.exp_sums_one(tau));
+        assert_eq!(d.exp_sums(taus), one);
+        assert_eq!(d.exp_sums([taus[2], taus[5]]), [one[2], one[5]]);
+        assert_eq!(d.exp_sums([taus[1]]), [one[1]]);
+    }
+
+    #[test]
+    fn lockstep_search_equals_the_plain_search() {
+        // Grid in groups and the two golden sections in lockstep against the
+        // plain search: the same sums and comparisons, so identical results,
+        // on chirped, flat, drifting and short traces, uniform or not.
+        let mut cases: Vec<Trace> = Vec::new();
+        for (n, seed) in [(2400, 1u64), (900, 2), (5000, 3), (260, 4), (130, 5)] {
+            let z = noisy_tone(12_000.0, n, seed);
+            cases.push(trace(&z, 12_000.0, 40.0, n as f64 - 41.0));
+        }
+        let z = tone(12_000.0, 3000, |t| -3.0 + 40.0 * t);
+        cases.push(trace(&z, 12_000.0, 40.0, 2950.0));
+        let z = tone(12_000.0, 3000, |_| 2.0);
+        cases.push(trace(&z, 12_000.0, 40.0, 2950.0));
+        // Chirps of several sizes and time constants, in noise of several
+        // levels: the searches turn both ways at every step somewhere.
+        let mut st = 5u64;
+        let mut rnd = move || {
+            st = st
+                .wrapping_mul(6_364_136_223_846_793_005)
+                .wrapping_add(1_442_695_040_888_963_407);
+            (st >> 11) as f64 / (1u64 << 53) as f64 - 0.5
+        };
+        for j in 0..40 {
+            let m = 8 + (j * 37) % 400;
+            let (amp, tau, noise) = (30.0 * rnd(), 0.002 + 0.02 * (rnd() + 0.5), j as f64 * 0.05);
+            let t: Vec<f64> = (0..m).map(|i| i as f64 * TRACE_STEP_S).collect();
+            let f = t
+                .iter()
+                .map(|x| amp * (-x / tau).exp() + 0.5 * x + noise * rnd())
+                .collect();
+            let w = (0..m).map(|_| 1.0 + 0.5 * rnd()).collect();
+            cases.push(Trace { t, f, w });
+        }
+        // Four points: two to fit, too few for model 3 (its fits fail, and
+        // it searches alongside model 2 unused).
+        cases.push(Trace {
+            t: vec![0.0, 0.001, 0.002, 0.003],
+            f: vec![5.0, 3.0, 2.0, 1.5],
+            w: vec![1.0; 4],
+        });
+        // Not uniform: the direct sums.
+        let mut nu = cases[0].clone();
+        for (i, x) in nu.t.iter_mut().enumerate() {
+            *x += 1e-6 * (i % 3) as f64;
+        }
+        cases.push(nu);
+        let (mut searched, mut one_model) = (0, 0);
+        for tr in &cases {
+            let n = tr.t.len();
+            let dur = tr.t[n - 1];
+            let m = n.div_ceil(FIT_STRIDE);
+            let pick = |v: &[f64]| v.iter().step_by(FIT_STRIDE).copied().collect::<Vec<_>>();
+            let (t, f, w) = (pick(&tr.t), pick(&tr.f), pick(&tr.w));
+            let data = FitData::new(&t, &f, &w, dur / 2.0);
+            let n_eff = (dur / TRACE_WINDOW_S).max(2.0);
+            let score = |rss: f64, k: f64| n_eff * (rss.max(1e-18) / m as f64).ln() + k * 2.0;
+            let fast = exp_search(&data, dur, score);
+            let slow = exp_search_reference(&data, dur, score);
+            assert_eq!(fast, slow, "{n}");
+            searched += fast.iter().flatten().count();
+            one_model += (fast[0].is_some() != fast[1].is_some()) as usize;
+        }
+        assert!(searched >= 90 && one_model >= 1, "{searched} {one_model}");
     }
 
     #[test]
@@ -849,7 +1302,7 @@ mod tests {
         for model in 0..4u8 {
             for tau in [0.0007, 0.004, 0.02, 0.1] {
                 let slow = fit_model(model, tau, &t, &f, &w, mid).unwrap();
-                let es = d.exp_sums(tau);
+                let [es] = d.exp_sums([tau]);
                 let fast = d.fit(model, Some(&es)).unwrap();
                 // RSS = sum(w y^2) - beta . X'Wy cancels: rounding is
                 // relative to sum(w y^2).
