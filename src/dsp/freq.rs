@@ -894,7 +894,16 @@ pub fn chirp(tr: &Trace) -> ChirpFit {
             })
             .collect();
     let mv: Vec<f64> = half.iter().map(|&i| model[i]).collect();
-    let settled = weighted_median(&mv, &hw);
+    // The constant model is one value at every point: its weighted median
+    // is that value (no sort needed).
+    let settled = if model_id == 0
+        && mv.first().is_some_and(|v| v.is_finite())
+        && hw.iter().any(|&w| w > 0.0)
+    {
+        mv[0]
+    } else {
+        weighted_median(&mv, &hw)
+    };
     let chirp = model
         .iter()
         .map(|v| (v - settled).abs())
