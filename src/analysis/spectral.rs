@@ -1004,6 +1004,17 @@ fn passband(noise: &[f64], bin: f64, tone_hz: f64) -> Option<[f64; 2]> {
 mod tests {
     use super::*;
 
+    /// A 16-bit mono WAV writer for the test recordings.
+    fn mono16(path: &Path, fs: u32) -> hound::WavWriter<std::io::BufWriter<std::fs::File>> {
+        let spec = hound::WavSpec {
+            channels: 1,
+            sample_rate: fs,
+            bits_per_sample: 16,
+            sample_format: hound::SampleFormat::Int,
+        };
+        hound::WavWriter::create(path, spec).unwrap()
+    }
+
     #[test]
     fn necessary_bandwidth_worked_example() {
         // Radio Regulations Appendix 1 example (from memory, BRIEF.md):
@@ -1025,13 +1036,7 @@ mod tests {
         let fs = 48_000u32;
         let dir = tempfile::tempdir().unwrap();
         let path = dir.path().join("keyed.wav");
-        let spec = hound::WavSpec {
-            channels: 1,
-            sample_rate: fs,
-            bits_per_sample: 16,
-            sample_format: hound::SampleFormat::Int,
-        };
-        let mut w = hound::WavWriter::create(&path, spec).unwrap();
+        let mut w = mono16(&path, fs);
         let n = 22 * fs as usize;
         let mut seed = 12345u32;
         for i in 0..n {
@@ -1089,12 +1094,6 @@ mod tests {
         let fs = 48_000u32;
         let dir = tempfile::tempdir().unwrap();
         let path = dir.path().join("bursts.wav");
-        let spec = hound::WavSpec {
-            channels: 1,
-            sample_rate: fs,
-            bits_per_sample: 16,
-            sample_format: hound::SampleFormat::Int,
-        };
         let burst =
             |t0: f64| (0..10).map(move |k| (t0 + k as f64 * 0.2, t0 + k as f64 * 0.2 + 0.1));
         let els: Vec<(f64, f64)> = burst(1.0).chain(burst(30.0)).collect();
@@ -1112,7 +1111,7 @@ mod tests {
                 (v * 32767.0) as i16 as f32 / 32_768.0
             })
             .collect();
-        let mut w = hound::WavWriter::create(&path, spec).unwrap();
+        let mut w = mono16(&path, fs);
         for v in &x {
             w.write_sample((v * 32_768.0) as i16).unwrap();
         }
