@@ -628,11 +628,13 @@ impl SpectralStream {
                 .saturating_sub((0.1 * self.fsf) as u64 + self.n_edge as u64 + 2)
         };
         let need = [
-            if self.t_first_i.is_some() {
-                self.next_main
-                    .min(self.t_last_i.max(self.next_main.min(self.horizon)))
-            } else {
-                u64::MAX
+            // The main spectrum needs nothing more once its passage ended
+            // with every element known (else a silent tail would be kept).
+            match self.t_first_i {
+                Some(_) if !(self.horizon == u64::MAX && self.next_main >= self.t_last_i) => {
+                    self.next_main
+                }
+                _ => u64::MAX,
             },
             self.next_noise,
             if self.use_pre {
@@ -1004,6 +1006,21 @@ fn passband(noise: &[f64], bin: f64, tone_hz: f64) -> Option<[f64; 2]> {
 mod tests {
     use super::*;
 
+    /// The tests' pass input: a 700 Hz tone at -12 dBFS, 0.1 s units.
+    fn input_700<'a>(path: &'a Path, els: &'a [(f64, f64)]) -> SpectralInput<'a> {
+        SpectralInput {
+            path,
+            channel: 0,
+            tone_hz: 700.0,
+            carrier_power: 0.0625,
+            elements: els,
+            unit_s: Some(0.1),
+            k: DEFAULT_K,
+            others_hz: &[],
+            gram: None,
+        }
+    }
+
     /// A 16-bit mono WAV writer for the test recordings.
     fn mono16(path: &Path, fs: u32) -> hound::WavWriter<std::io::BufWriter<std::fs::File>> {
         let spec = hound::WavSpec {
@@ -1062,17 +1079,7 @@ mod tests {
         let els: Vec<(f64, f64)> = (0..110)
             .map(|k| (k as f64 * 0.2, k as f64 * 0.2 + 0.1))
             .collect();
-        let mut inp = SpectralInput {
-            path: &path,
-            channel: 0,
-            tone_hz: 700.0,
-            carrier_power: 0.0625,
-            elements: &els,
-            unit_s: Some(0.1),
-            k: DEFAULT_K,
-            others_hz: &[],
-            gram: None,
-        };
+        let mut inp = input_700(&path, &els);
         let own = spectral_pass(&inp).unwrap();
         inp.gram = Some(g);
         let shared = spectral_pass(&inp).unwrap();
@@ -1116,17 +1123,7 @@ mod tests {
             w.write_sample((v * 32_768.0) as i16).unwrap();
         }
         w.finalize().unwrap();
-        let inp = SpectralInput {
-            path: &path,
-            channel: 0,
-            tone_hz: 700.0,
-            carrier_power: 0.0625,
-            elements: &els,
-            unit_s: Some(0.1),
-            k: DEFAULT_K,
-            others_hz: &[],
-            gram: None,
-        };
+        let inp = input_700(&path, &els);
         let whole = spectral_pass(&inp).unwrap();
 
         let mut st = SpectralStream::new(fs, n as u64, 700.0, None, None);

@@ -1095,24 +1095,27 @@ mod tests {
         }
     }
 
+    /// A trace-like grid of `n` points (steps of 6 samples at 12 kHz
+    /// accumulated from `c0`, so not exactly uniform) with made-up values
+    /// and weights.
+    fn fit_grid(n: usize, c0: f64) -> (Vec<f64>, Vec<f64>, Vec<f64>) {
+        let (fs, mut c) = (12_000.0, c0);
+        let mut t = Vec::new();
+        for _ in 0..n {
+            t.push((c - c0) / fs + 0.000_25);
+            c += 6.0;
+        }
+        let f: Vec<f64> = (0..n).map(|i| ((i * 7919) % 13) as f64 - 6.0).collect();
+        let w: Vec<f64> = (0..n).map(|i| 0.5 + ((i * 31) % 7) as f64 * 0.1).collect();
+        (t, f, w)
+    }
+
     #[test]
     fn polynomial_exp_sums_equal_the_direct_sums() {
         // Horner's rule in r = exp(-dt / tau) against one exp per point, on
         // a grid built like the trace's (accumulated steps, not exactly
         // uniform) and starting off zero.
-        let (fs, mut c) = (12_000.0, 1234.567);
-        let t0 = c;
-        let mut t = Vec::new();
-        for _ in 0..417 {
-            t.push((c - t0) / fs + 0.000_25);
-            c += 6.0;
-        }
-        let f: Vec<f64> = (0..t.len())
-            .map(|i| ((i * 7919) % 13) as f64 - 6.0)
-            .collect();
-        let w: Vec<f64> = (0..t.len())
-            .map(|i| 0.5 + ((i * 31) % 7) as f64 * 0.1)
-            .collect();
+        let (t, f, w) = fit_grid(417, 1234.567);
         let d = FitData::new(&t, &f, &w, t[t.len() - 1] / 2.0);
         assert!(d.uniform);
         let close = |a: f64, b: f64, scale: f64| (a - b).abs() <= 1e-12 * scale;
@@ -1201,19 +1204,7 @@ mod tests {
     fn batched_exp_sums_equal_one_at_a_time() {
         // Several time constants per pass against one per pass: the same
         // operations per time constant, so bit-identical.
-        let (fs, mut c) = (12_000.0, 77.7);
-        let t0 = c;
-        let mut t = Vec::new();
-        for _ in 0..233 {
-            t.push((c - t0) / fs + 0.000_25);
-            c += 6.0;
-        }
-        let f: Vec<f64> = (0..t.len())
-            .map(|i| ((i * 7919) % 13) as f64 - 6.0)
-            .collect();
-        let w: Vec<f64> = (0..t.len())
-            .map(|i| 0.5 + ((i * 31) % 7) as f64 * 0.1)
-            .collect();
+        let (t, f, w) = fit_grid(233, 77.7);
         let d = FitData::new(&t, &f, &w, t[t.len() - 1] / 2.0);
         assert!(d.uniform);
         let taus = [0.000_5, 0.0011, 0.004, 0.02, 0.1, 0.3, 0.0007, 1e-5];
