@@ -155,7 +155,7 @@ pub fn analyze_file(path: &Path, opt: &Options) -> Result<Report> {
     rider.push(&[], &set, true);
     let (mut rep, side) = set.reports(input, info.sample_rate_hz);
     if rep.summary.keyed_signal_found {
-        add_spectral(&mut rep, path, channel, opt, gram, Some(rider.stream))?;
+        add_spectral(&mut rep, path, channel, opt, gram, rider.stream)?;
     }
     if let Some(st) = opt.sidetone_hz {
         tones::sidetone(&mut rep, &side, st, opt, path, channel)?;
@@ -329,16 +329,16 @@ impl SpectralRider {
     }
 }
 
-/// Third pass: spectra, bandwidths, clicks and the picture data. `ridden`:
-/// the pass as it rode along with the measurement, used when it matches
-/// what a pass of its own would do (else the recording is read again).
+/// Spectra, bandwidths, clicks and the picture data. `ridden`: the pass as
+/// it rode along with the measurement, used when it matches what a pass of
+/// its own would do (else the recording is read a third time).
 fn add_spectral(
     rep: &mut Report,
     path: &Path,
     channel: usize,
     opt: &Options,
     gram: Option<&crate::dsp::survey::SurveyGram>,
-    ridden: Option<spectral::SpectralStream>,
+    ridden: spectral::SpectralStream,
 ) -> Result<()> {
     let s = &rep.summary;
     let (Some(tone), Some(level)) = (s.tone_hz, s.level_dbfs) else {
@@ -365,9 +365,10 @@ fn add_spectral(
             .collect::<Vec<f64>>(),
         gram,
     };
-    let out = match ridden {
-        Some(st) if st.matches(tone, &els) => st.finish(&inp),
-        _ => spectral::spectral_pass(&inp)?,
+    let out = if ridden.matches(tone, &els) {
+        ridden.finish(&inp)
+    } else {
+        spectral::spectral_pass(&inp)?
     };
     rep.views.spectrum = out.spectrum;
     rep.views.noise = out.noise;
