@@ -132,7 +132,8 @@ supplies. Local regulations and licensed practice come first; cwaudit
 measures, it does not certify.
 
 Exit codes: 0 = done, 1 = (record --analyze) a figure failed its limit,
-2 = the device, the file or the command line could not be used.";
+2 = the device, the file or the command line could not be used, or the
+device stopped (gone, or no samples for 5 s; what it sent is kept).";
 
 #[derive(Args, Debug)]
 pub struct AnalyzeArgs {

@@ -316,6 +316,70 @@ fn record_refuses_to_overwrite_and_analyze_reports_on_the_result() {
 }
 
 #[test]
+fn a_device_that_stops_delivering_ends_the_recording_and_keeps_what_came() {
+    // The device's input is a named pipe holding 0.5 s of audio, kept open
+    // here so the device's read waits for more that never comes (a device
+    // that hangs without reporting an error). The recording must end on
+    // its own once nothing has arrived for health::STALL_S (5 s), keep the
+    // 0.5 s in a valid WAV, exit 2 with one sentence, and not wait for the
+    // stuck read (the pipe stays open until this test ends).
+    let s = spec(1);
+    let (x, _) = render(&s);
+    let b = Bench::new(&[]);
+    let fifo = b.path("in.raw");
+    std::fs::remove_file(&fifo).unwrap();
+    let made = Command::new("mkfifo").arg(&fifo).status().unwrap();
+    assert!(made.success());
+    let head = Raw::S16.encode(&x[..24_000]);
+    assert!(head.len() < 65_536, "must fit the pipe's buffer");
+    // Read-write: never blocks on open, and the pipe never sees its end.
+    let mut pipe = std::fs::OpenOptions::new()
+        .read(true)
+        .write(true)
+        .open(&fifo)
+        .unwrap();
+    std::io::Write::write_all(&mut pipe, &head).unwrap();
+    let p = b.path("stall.wav");
+    let t0 = Instant::now();
+    let mut child = b
+        .cmd()
+        .args([
+            "record",
+            p.to_str().unwrap(),
+            "--device",
+            "cwaudit_bench",
+            "--seconds",
+            "30",
+        ])
+        .stdout(Stdio::null())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    // Fail rather than hang if it waits for the stuck read.
+    let status = loop {
+        if let Some(st) = child.try_wait().unwrap() {
+            break st;
+        }
+        if t0.elapsed() > Duration::from_secs(20) {
+            let _ = child.kill();
+            panic!("record did not end within 20 s of a stalled device");
+        }
+        std::thread::sleep(Duration::from_millis(50));
+    };
+    let mut err = String::new();
+    std::io::Read::read_to_string(&mut child.stderr.take().unwrap(), &mut err).unwrap();
+    assert_eq!(status.code(), Some(2), "{err}");
+    assert!(err.contains("no samples arrived for 5 s"), "{err}");
+    assert!(err.contains("stall.wav"), "{err}");
+    let (spec, got) = wav_samples(&p);
+    assert_eq!(spec.sample_rate, 48_000);
+    assert!((24_000..=25_000).contains(&got.len()), "{}", got.len());
+    let want = Raw::S16.quantise(&x[..24_000]);
+    assert_eq!(&got[..24_000], &want[..]);
+    drop(pipe);
+}
+
+#[test]
 fn ctrl_c_during_a_recording_leaves_a_valid_wav_with_every_frame_captured() {
     let s = spec(1);
     let (x, _) = render(&s);

@@ -7,6 +7,7 @@
 pub mod bridge;
 pub mod devices;
 pub mod engine;
+pub mod health;
 pub mod record;
 pub mod screen;
 pub mod watch;

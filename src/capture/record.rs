@@ -14,6 +14,7 @@ use cpal::traits::StreamTrait;
 
 use super::bridge::{drain, ring};
 use super::devices::{choose, find, open_stream};
+use super::health::{self, Health};
 use super::wavout::{check_free, Format, WavSink};
 use crate::error::{CwError, Result};
 
@@ -163,11 +164,9 @@ pub fn run(a: &RecordArgs) -> Result<i32> {
         .map(|s| (s * c.rate as f64).round().max(1.0) as u64);
     let mut sink = WavSink::create(&a.out, c.rate, c.channels, c.format, a.force)?;
     let (feeder, mut cons, shared) = ring((RING_S * c.rate as f64) as usize, c.channels, limit);
-    let (etx, erx) = mpsc::channel::<String>();
+    let (etx, erx) = mpsc::channel();
     let stop = stop_flag();
-    let stream = open_stream(&dev, &c, feeder, move |e| {
-        let _ = etx.send(e.to_string());
-    })?;
+    let stream = open_stream(&dev, &c, feeder, health::reporter(etx))?;
     stream
         .play()
         .map_err(|e| CwError::Usage(format!("device {} could not start ({e})", c.name)))?;
@@ -188,6 +187,8 @@ pub fn run(a: &RecordArgs) -> Result<i32> {
     let mut buf = Vec::with_capacity(1 << 16);
     let mut last_draw = Instant::now();
     let per_s = c.rate as f64;
+    let mut health = Health::new(erx, Instant::now());
+    let mut ended = None;
     loop {
         let finished = shared.done() || stop.load(Ordering::SeqCst);
         buf.clear();
@@ -196,8 +197,13 @@ pub fn run(a: &RecordArgs) -> Result<i32> {
             sink.write(&buf)?;
             buf.clear();
         }
-        while let Ok(e) = erx.try_recv() {
+        let checkup = health.check(shared.frames(), Instant::now());
+        for e in &checkup.notices {
             eprintln!("\ncwaudit: sound card: {e}");
+        }
+        if checkup.ended.is_some() {
+            ended = checkup.ended;
+            break;
         }
         if finished {
             break;
@@ -216,8 +222,14 @@ pub fn run(a: &RecordArgs) -> Result<i32> {
         }
         std::thread::sleep(Duration::from_millis(20));
     }
-    // Stop the callbacks, then take what they left in the ring.
-    drop(stream);
+    // Stop the callbacks, then take what they left in the ring. A device
+    // that stalled may hold its thread in a read that never returns, and
+    // dropping the stream would wait for that thread: leave it to the exit.
+    if ended.is_some() {
+        std::mem::forget(stream);
+    } else {
+        drop(stream);
+    }
     buf.clear();
     while drain(&mut cons, c.channels, &mut buf, 1 << 16) > 0 {
         meter.add(&buf);
@@ -241,6 +253,13 @@ pub fn run(a: &RecordArgs) -> Result<i32> {
     eprintln!("cwaudit: {}", summary_line(&a.out, &rec));
     for w in warnings(&rec) {
         eprintln!("cwaudit: {w}");
+    }
+    if let Some(why) = ended {
+        return Err(CwError::Usage(format!(
+            "the sound card stopped during the recording ({why}); the {:.2} s before that are kept in {}",
+            rec.frames as f64 / rec.rate as f64,
+            a.out.display()
+        )));
     }
     if a.analyze {
         return crate::cli::analyze_one(&a.out);

@@ -26,6 +26,8 @@ pub struct UiState {
     /// Spectrum rows, newest first.
     pub waterfall: VecDeque<Vec<f32>>,
     pub save: Option<String>,
+    /// The sound card's latest passing error (an overrun, say).
+    pub notice: Option<String>,
 }
 
 /// Rows kept for the waterfall.
@@ -177,6 +179,12 @@ pub fn draw(f: &mut Frame, snap: &Snapshot, ui: &UiState) {
     ];
     if let Some(p) = &ui.save {
         status.push(Span::raw(format!("   saving {p}")));
+    }
+    if let Some(e) = &ui.notice {
+        status.push(Span::styled(
+            format!("   sound card: {e}"),
+            Style::default().fg(Color::Yellow),
+        ));
     }
     f.render_widget(
         Paragraph::new(Line::from(status)).block(Block::bordered().title(Line::from(vec![

@@ -17,6 +17,7 @@ use ratatui::crossterm::terminal::{
 use super::bridge::ring;
 use super::devices::{choose, find, open_stream};
 use super::engine::{spawn, Snapshot};
+use super::health::{self, Checkup, Health};
 use super::record::{stop_flag, StreamArgs};
 use super::screen::{draw, UiState};
 use super::wavout::{check_free, WavSink};
@@ -95,7 +96,8 @@ pub fn run(a: &WatchArgs) -> Result<i32> {
         None => None,
     };
     let (feeder, cons, shared) = ring((RING_S * c.rate as f64) as usize, c.channels, None);
-    let stream = open_stream(&dev, &c, feeder, |_| {})?;
+    let (etx, erx) = std::sync::mpsc::channel();
+    let stream = open_stream(&dev, &c, feeder, health::reporter(etx))?;
     let (h, rx, ctl) = spawn(cons, shared.clone(), c.channels, an, profile, save);
     let stop = stop_flag();
     let mut ui = UiState {
@@ -121,16 +123,31 @@ pub fn run(a: &WatchArgs) -> Result<i32> {
             let mut term =
                 ratatui::Terminal::new(ratatui::backend::CrosstermBackend::new(std::io::stdout()))
                     .map_err(term_err)?;
-            ui_loop(&mut term, &rx, &mut ui, &ctl.reset, &stop)
+            let mut health = Health::new(erx, Instant::now());
+            let mut stream_health = || health.check(shared.frames(), Instant::now());
+            ui_loop(
+                &mut term,
+                &rx,
+                &mut ui,
+                &ctl.reset,
+                &stop,
+                &mut stream_health,
+            )
         });
     // However the display ended: stop the input first, so the analysis
-    // thread can empty the ring, then let it finish the --save file.
-    drop(stream);
+    // thread can empty the ring, then let it finish the --save file. A
+    // stream that stopped may hold its thread in a read that never returns,
+    // and dropping it would wait for that thread: leave it to the exit.
+    if matches!(&shown, Ok((_, Some(_)))) {
+        std::mem::forget(stream);
+    } else {
+        drop(stream);
+    }
     ctl.quit.store(true, Ordering::Release);
     let ended = h
         .join()
         .map_err(|_| CwError::Usage("the analysis thread failed".into()))?;
-    let shown = shown?;
+    let (shown, stopped) = shown?;
     let ended = ended?;
     let last = ended.last.or(shown);
     if let Some(s) = &last {
@@ -150,20 +167,27 @@ pub fn run(a: &WatchArgs) -> Result<i32> {
             shared.dropped_frames()
         );
     }
-    Ok(0)
+    match stopped {
+        Some(why) => Err(CwError::Usage(format!(
+            "the sound card stopped during the measurement ({why})"
+        ))),
+        None => Ok(0),
+    }
 }
 
 type Term = ratatui::Terminal<ratatui::backend::CrosstermBackend<std::io::Stdout>>;
 
 /// Draws snapshots as they come and handles the keys; returns the last
-/// snapshot drawn when the user quits.
+/// snapshot drawn when the user quits or the sound card stops, and in the
+/// second case why (`stream_health` looks at the stream).
 fn ui_loop(
     term: &mut Term,
     rx: &std::sync::mpsc::Receiver<Snapshot>,
     ui: &mut UiState,
     reset: &std::sync::atomic::AtomicBool,
     stop: &std::sync::atomic::AtomicBool,
-) -> Result<Option<Snapshot>> {
+    stream_health: &mut dyn FnMut() -> Checkup,
+) -> Result<(Option<Snapshot>, Option<String>)> {
     let io = |e: std::io::Error| CwError::Usage(format!("the terminal cannot be used ({e})"));
     let mut shown: Option<Snapshot> = None;
     let mut newest: Option<Snapshot> = None;
@@ -179,7 +203,7 @@ fn ui_loop(
                 dirty = true;
             }
             Err(std::sync::mpsc::RecvTimeoutError::Timeout) => {}
-            Err(std::sync::mpsc::RecvTimeoutError::Disconnected) => return Ok(shown),
+            Err(std::sync::mpsc::RecvTimeoutError::Disconnected) => return Ok((shown, None)),
         }
         while event::poll(Duration::ZERO).map_err(io)? {
             if let Event::Key(k) = event::read().map_err(io)? {
@@ -187,9 +211,9 @@ fn ui_loop(
                     continue;
                 }
                 match k.code {
-                    KeyCode::Char('q') | KeyCode::Esc => return Ok(shown),
+                    KeyCode::Char('q') | KeyCode::Esc => return Ok((shown, None)),
                     KeyCode::Char('c') if k.modifiers.contains(KeyModifiers::CONTROL) => {
-                        return Ok(shown)
+                        return Ok((shown, None))
                     }
                     KeyCode::Char('r') => {
                         reset.store(true, Ordering::Release);
@@ -204,7 +228,15 @@ fn ui_loop(
             }
         }
         if stop.load(Ordering::SeqCst) {
-            return Ok(shown);
+            return Ok((shown, None));
+        }
+        let checkup = stream_health();
+        if checkup.ended.is_some() {
+            return Ok((shown, checkup.ended));
+        }
+        if let Some(e) = checkup.notices.last() {
+            ui.notice = Some(e.clone());
+            dirty = true;
         }
         if !ui.frozen {
             if let Some(n) = newest.take() {
