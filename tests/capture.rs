@@ -102,6 +102,17 @@ impl Bench {
         c.env("HOME", self.home());
         c
     }
+    /// `cwaudit record OUT ARGS...` started, its standard error piped.
+    fn spawn_record(&self, out: &Path, args: &[&str]) -> std::process::Child {
+        self.cmd()
+            .arg("record")
+            .arg(out)
+            .args(args)
+            .stdout(Stdio::null())
+            .stderr(Stdio::piped())
+            .spawn()
+            .unwrap()
+    }
 }
 
 fn spec(channels: u16) -> SynthSpec {
@@ -315,6 +326,29 @@ fn record_refuses_to_overwrite_and_analyze_reports_on_the_result() {
     assert_truth(&analyze(&p), &truth, 1);
 }
 
+/// Waits for `child` to exit, at most `limit` after `t0`; a child still
+/// running then is killed and the test fails (rather than hangs). Returns
+/// the exit status and standard error.
+fn ended_within(
+    child: &mut std::process::Child,
+    t0: Instant,
+    limit: Duration,
+) -> (std::process::ExitStatus, String) {
+    let status = loop {
+        if let Some(st) = child.try_wait().unwrap() {
+            break st;
+        }
+        if t0.elapsed() > limit {
+            let _ = child.kill();
+            panic!("the command did not end within {limit:?} of a stalled device");
+        }
+        std::thread::sleep(Duration::from_millis(50));
+    };
+    let mut err = String::new();
+    std::io::Read::read_to_string(&mut child.stderr.take().unwrap(), &mut err).unwrap();
+    (status, err)
+}
+
 #[test]
 fn a_device_that_stops_delivering_ends_the_recording_and_keeps_what_came() {
     // The device's input is a named pipe holding 0.5 s of audio, kept open
@@ -322,7 +356,8 @@ fn a_device_that_stops_delivering_ends_the_recording_and_keeps_what_came() {
     // that hangs without reporting an error). The recording must end on
     // its own once nothing has arrived for health::STALL_S (5 s), keep the
     // 0.5 s in a valid WAV, exit 2 with one sentence, and not wait for the
-    // stuck read (the pipe stays open until this test ends).
+    // stuck read (the pipe stays open until this test ends). Then the same
+    // with the pipe empty from the start.
     let s = spec(1);
     let (x, _) = render(&s);
     let b = Bench::new(&[]);
@@ -341,33 +376,8 @@ fn a_device_that_stops_delivering_ends_the_recording_and_keeps_what_came() {
     std::io::Write::write_all(&mut pipe, &head).unwrap();
     let p = b.path("stall.wav");
     let t0 = Instant::now();
-    let mut child = b
-        .cmd()
-        .args([
-            "record",
-            p.to_str().unwrap(),
-            "--device",
-            "cwaudit_bench",
-            "--seconds",
-            "30",
-        ])
-        .stdout(Stdio::null())
-        .stderr(Stdio::piped())
-        .spawn()
-        .unwrap();
-    // Fail rather than hang if it waits for the stuck read.
-    let status = loop {
-        if let Some(st) = child.try_wait().unwrap() {
-            break st;
-        }
-        if t0.elapsed() > Duration::from_secs(20) {
-            let _ = child.kill();
-            panic!("record did not end within 20 s of a stalled device");
-        }
-        std::thread::sleep(Duration::from_millis(50));
-    };
-    let mut err = String::new();
-    std::io::Read::read_to_string(&mut child.stderr.take().unwrap(), &mut err).unwrap();
+    let mut child = b.spawn_record(&p, &["--device", "cwaudit_bench", "--seconds", "30"]);
+    let (status, err) = ended_within(&mut child, t0, Duration::from_secs(20));
     assert_eq!(status.code(), Some(2), "{err}");
     assert!(err.contains("no samples arrived for 5 s"), "{err}");
     assert!(err.contains("stall.wav"), "{err}");
@@ -376,6 +386,16 @@ fn a_device_that_stops_delivering_ends_the_recording_and_keeps_what_came() {
     assert!((24_000..=25_000).contains(&got.len()), "{}", got.len());
     let want = Raw::S16.quantise(&x[..24_000]);
     assert_eq!(&got[..24_000], &want[..]);
+
+    // Nothing at all from the device: no file is made, and a file of the
+    // user's given with --force is left as it was, not replaced by nothing.
+    let mine = b.path("mine.wav");
+    std::fs::write(&mine, b"an earlier take").unwrap();
+    let mut child = b.spawn_record(&mine, &["--device", "cwaudit_bench", "--force"]);
+    let (status, err) = ended_within(&mut child, Instant::now(), Duration::from_secs(20));
+    assert_eq!(status.code(), Some(2), "{err}");
+    assert!(err.contains("before it delivered any audio"), "{err}");
+    assert_eq!(std::fs::read(&mine).unwrap(), b"an earlier take");
     drop(pipe);
 }
 
@@ -385,20 +405,7 @@ fn ctrl_c_during_a_recording_leaves_a_valid_wav_with_every_frame_captured() {
     let (x, _) = render(&s);
     let b = Bench::new(&Raw::S16.encode(&x));
     let p = b.path("stopped.wav");
-    let mut child = b
-        .cmd()
-        .args([
-            "record",
-            p.to_str().unwrap(),
-            "--device",
-            "bench source",
-            "--format",
-            "s16",
-        ])
-        .stderr(Stdio::piped())
-        .stdout(Stdio::null())
-        .spawn()
-        .unwrap();
+    let mut child = b.spawn_record(&p, &["--device", "bench source", "--format", "s16"]);
     let mut err = BufReader::new(child.stderr.take().unwrap());
     // The sound library may warn about the machine's own cards first.
     let mut head = String::new();

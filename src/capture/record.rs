@@ -236,6 +236,14 @@ pub fn run(a: &RecordArgs) -> Result<i32> {
         sink.write(&buf)?;
         buf.clear();
     }
+    if let (Some(why), 0) = (&ended, sink.frames()) {
+        // Nothing came: leave no empty file (and no file replaced by one).
+        drop(sink);
+        return Err(CwError::Usage(format!(
+            "the sound card stopped before it delivered any audio ({why}); {} was not written",
+            a.out.display()
+        )));
+    }
     let rec = Recorded {
         frames: sink.frames(),
         rate: c.rate,

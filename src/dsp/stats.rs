@@ -62,12 +62,7 @@ pub fn median(v: &[f64]) -> f64 {
 /// so a total landing within rounding of the half-way point may pick the
 /// neighbouring value; otherwise the two agree exactly.
 pub fn weighted_median(values: &[f64], weights: &[f64]) -> f64 {
-    let mut p: Vec<(f64, f64)> = values
-        .iter()
-        .zip(weights)
-        .filter(|(v, w)| v.is_finite() && **w > 0.0)
-        .map(|(v, w)| (*v, *w))
-        .collect();
+    let mut p = usable_pairs(values, weights);
     if p.is_empty() {
         return f64::NAN;
     }
@@ -112,6 +107,16 @@ pub fn weighted_median(values: &[f64], weights: &[f64]) -> f64 {
     }
 }
 
+/// (value, weight) pairs with a finite value and a positive weight.
+fn usable_pairs(values: &[f64], weights: &[f64]) -> Vec<(f64, f64)> {
+    values
+        .iter()
+        .zip(weights)
+        .filter(|(v, w)| v.is_finite() && **w > 0.0)
+        .map(|(v, w)| (*v, *w))
+        .collect()
+}
+
 /// The spread of the finite values, or None when there are none.
 pub fn spread(v: &[f64]) -> Option<Spread> {
     let mut s: Vec<f64> = v.iter().copied().filter(|x| x.is_finite()).collect();
@@ -148,12 +153,7 @@ mod tests {
     }
 
     fn weighted_median_sorted(values: &[f64], weights: &[f64]) -> f64 {
-        let mut p: Vec<(f64, f64)> = values
-            .iter()
-            .zip(weights)
-            .filter(|(v, w)| v.is_finite() && **w > 0.0)
-            .map(|(v, w)| (*v, *w))
-            .collect();
+        let mut p = usable_pairs(values, weights);
         if p.is_empty() {
             return f64::NAN;
         }
