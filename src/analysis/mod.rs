@@ -91,20 +91,109 @@ pub fn rise_floor_s(fs: u32, center_hz: f64) -> f64 {
     Downconverter::new(fs, Band::envelope(fs as f64, center_hz)).rise_floor_s()
 }
 
+/// Seconds of recording the survey has seen when the tone is first chosen
+/// early, and between later tries while no keyed tone has shown.
+const EARLY_FIRST_S: f64 = 10.0;
+const EARLY_EVERY_S: f64 = 5.0;
+/// Most bytes of input held while the tone is not yet chosen. Past it
+/// nothing more is held and the measurement reads the recording again.
+const EARLY_MAX_BYTES: usize = 24 << 20;
+
 /// Analyses one WAV file.
+///
+/// Usually in one read: the survey looks at the first seconds, the tone is
+/// chosen from what it found, and the measurement starts on the input held
+/// so far and rides along with the survey to the end. The final survey
+/// then checks the early choice (`ToneSet::fits`); should it differ (a tone
+/// that starts late, a weak one that only the whole recording shows), the
+/// recording is measured again in a second read with the final choice, so
+/// the result is always that of the whole recording's survey. A recording
+/// that ends before the choice is measured from the input held.
 pub fn analyze_file(path: &Path, opt: &Options) -> Result<Report> {
+    analyze_reading(path, opt, true).map(|(r, _)| r)
+}
+
+/// How the measurement got its input.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+enum Route {
+    /// From an early choice, in the survey's read.
+    Early,
+    /// From the whole recording, held while no choice was made.
+    Held,
+    /// In a second read.
+    Reread,
+    /// Nothing to measure.
+    NoSignal,
+}
+
+/// [`analyze_file`], and how the input reached the measurement. With
+/// `early_choice` false the tone is never chosen early and the recording is
+/// always read twice (survey, then measurement): the plain way the single
+/// read is checked against.
+fn analyze_reading(path: &Path, opt: &Options, early_choice: bool) -> Result<(Report, Route)> {
     let mut src = WavSource::open(path)?;
     let info = src.info().clone();
     let nch = info.channels as usize;
-    let mut survey = Survey::new(info.sample_rate_hz, nch);
+    let fs = info.sample_rate_hz;
+    let mut survey = Survey::new(fs, nch);
     if let Some(n) = info.frames {
         // The spectral pass's spectrogram uses the survey's frames.
         survey.keep_spectrogram(n);
     }
+    let first = (EARLY_FIRST_S * fs as f64) as u64;
+    let every = (EARLY_EVERY_S * fs as f64) as u64;
+    let mut next_try = first;
+    // The input while no tone is chosen (None once over the cap), and what
+    // the survey's front end made of each channel of it.
+    let mut held: Option<(Vec<f32>, Vec<Vec<f32>>)> =
+        early_choice.then(|| (Vec::new(), vec![Vec::new(); nch]));
+    let mut early: Option<Measure> = None;
     let mut buf = Vec::new();
-    while src.read_frames(&mut buf, BLOCK_FRAMES)? > 0 {
+    loop {
+        // Tries at fixed sample counts, so the choice does not depend on
+        // how the input is cut into blocks.
+        if early_choice && early.is_none() && survey.frames_seen() >= next_try {
+            next_try += every;
+            if let Some((raw, dec)) = held.as_ref() {
+                let snap = survey.snapshot();
+                if let Some(c) = choose(&snap, opt, path)? {
+                    let others = tones::others(&snap, &c);
+                    let gram = survey.gram_shape();
+                    let mut m =
+                        Measure::new(&info, &c, &others, gram.as_ref(), Some(survey.factor()));
+                    m.push(raw, nch, Some(&dec[c.channel]));
+                    held = None;
+                    early = Some(m);
+                }
+            }
+        }
+        let want = if early.is_none() && held.is_some() {
+            (next_try - survey.frames_seen()).min(BLOCK_FRAMES as u64) as usize
+        } else {
+            BLOCK_FRAMES
+        };
+        if src.read_frames(&mut buf, want)? == 0 {
+            break;
+        }
         survey.push(&buf);
+        if let Some(m) = early.as_mut() {
+            let c = m.channel;
+            m.push(&buf, nch, Some(survey.fresh(c)));
+        } else if let Some((raw, dec)) = held.as_mut() {
+            let dec_len: usize = dec.iter().map(Vec::len).sum();
+            let more = buf.len() + (0..nch).map(|c| survey.fresh(c).len()).sum::<usize>();
+            if (raw.len() + dec_len + more) * std::mem::size_of::<f32>() > EARLY_MAX_BYTES {
+                held = None;
+            } else {
+                raw.extend_from_slice(&buf);
+                for (c, d) in dec.iter_mut().enumerate() {
+                    d.extend_from_slice(survey.fresh(c));
+                }
+            }
+        }
     }
+    let tails = survey.flush_fronts();
+    let factor = survey.factor();
     let s = survey.finish();
     let cand = choose(&s, opt, path)?;
     let channel = cand
@@ -131,28 +220,29 @@ pub fn analyze_file(path: &Path, opt: &Options) -> Result<Report> {
         clipped_samples: cs.clipped_samples,
     };
     let Some(cand) = cand else {
-        return Ok(no_signal(input, &s));
+        return Ok((no_signal(input, &s), Route::NoSignal));
     };
 
     let others = tones::others(&s, &cand);
-    let mut set = tones::ToneSet::new(info.sample_rate_hz, &cand, &others);
-    let mut src = WavSource::open(path)?;
-    let mut mono = Vec::with_capacity(BLOCK_FRAMES);
     let gram = s.spectrograms.get(channel);
-    let mut rider = SpectralRider::new(&info, cand.frequency_hz, gram, &set);
-    while src.read_frames(&mut buf, BLOCK_FRAMES)? > 0 {
-        let x: &[f32] = if nch == 1 {
-            &buf
-        } else {
-            mono.clear();
-            mono.extend(buf.iter().skip(channel).step_by(nch));
-            &mono
-        };
-        set.push(x);
-        rider.push(x, &set, false);
-    }
-    set.finish();
-    rider.push(&[], &set, true);
+    let (mut m, route) = match (early, held) {
+        (Some(m), _) if m.set.fits(fs, &cand, &others) => (m, Route::Early),
+        (_, Some((raw, dec))) => {
+            let mut m = Measure::new(&info, &cand, &others, gram, Some(factor));
+            m.push(&raw, nch, Some(&dec[channel]));
+            (m, Route::Held)
+        }
+        _ => {
+            let mut m = Measure::new(&info, &cand, &others, gram, None);
+            let mut src = WavSource::open(path)?;
+            while src.read_frames(&mut buf, BLOCK_FRAMES)? > 0 {
+                m.push(&buf, nch, None);
+            }
+            (m, Route::Reread)
+        }
+    };
+    m.set.adopt(&cand, &others);
+    let (set, rider) = m.finish(&tails[channel]);
     let (mut rep, side) = set.reports(input, info.sample_rate_hz);
     if rep.summary.keyed_signal_found {
         add_spectral(&mut rep, path, channel, opt, gram, rider.stream)?;
@@ -160,7 +250,85 @@ pub fn analyze_file(path: &Path, opt: &Options) -> Result<Report> {
     if let Some(st) = opt.sidetone_hz {
         tones::sidetone(&mut rep, &side, st, opt, path, channel)?;
     }
-    Ok(rep)
+    Ok((rep, route))
+}
+
+/// The measurement of one choice of tones: the trackers and the spectral
+/// pass riding along, fed the chosen channel of interleaved input.
+struct Measure {
+    set: tones::ToneSet,
+    rider: SpectralRider,
+    channel: usize,
+    mono: Vec<f32>,
+    /// The survey's front-end factor when the survey's decimation of the
+    /// channel comes with the input (trackers decimating alike take it);
+    /// None when each tracker decimates for itself.
+    shared: Option<usize>,
+}
+
+impl Measure {
+    /// `gram`: the survey's spectrogram of the channel, or only its layout
+    /// while the survey is still running (the columns are read at the end).
+    fn new(
+        info: &crate::input::StreamInfo,
+        main: &Candidate,
+        others: &[Candidate],
+        gram: Option<&crate::dsp::survey::SurveyGram>,
+        shared: Option<usize>,
+    ) -> Measure {
+        let set = tones::ToneSet::new(info.sample_rate_hz, main, others);
+        let rider = SpectralRider::new(info, tones::on_grid(main.frequency_hz), gram, &set);
+        Measure {
+            set,
+            rider,
+            channel: main.channel,
+            mono: Vec::with_capacity(BLOCK_FRAMES),
+            shared,
+        }
+    }
+
+    /// Interleaved frames of `nch` channels; the chosen one is measured.
+    /// `front`: the survey's decimation of that channel over the same
+    /// stretch, given exactly when the measurement was made `shared`.
+    fn push(&mut self, interleaved: &[f32], nch: usize, front: Option<&[f32]>) {
+        // Held input comes as one long stretch: fed in reading-sized
+        // pieces all the same, so the spectral pass's horizon advances as
+        // usual (the decimated samples split in proportion; every stage
+        // takes blocks of any size).
+        let frames = interleaved.len() / nch;
+        let pieces = frames.div_ceil(BLOCK_FRAMES).max(1);
+        for k in 0..pieces {
+            let block =
+                &interleaved[k * BLOCK_FRAMES * nch..((k + 1) * BLOCK_FRAMES).min(frames) * nch];
+            let x: &[f32] = if nch == 1 {
+                block
+            } else {
+                self.mono.clear();
+                self.mono
+                    .extend(block.iter().skip(self.channel).step_by(nch));
+                &self.mono
+            };
+            match (self.shared, front) {
+                (Some(f), Some(d)) => {
+                    let piece = &d[d.len() * k / pieces..d.len() * (k + 1) / pieces];
+                    self.set.push_shared(x, (f, piece));
+                }
+                _ => self.set.push(x),
+            }
+            self.rider.push(x, &self.set, false);
+        }
+    }
+
+    /// Ends the input; `tail` is the survey's front-end flush of the
+    /// channel (used when the measurement is `shared`).
+    fn finish(mut self, tail: &[f32]) -> (tones::ToneSet, SpectralRider) {
+        match self.shared {
+            Some(f) => self.set.finish_shared((f, tail)),
+            None => self.set.finish(),
+        }
+        self.rider.push(&[], &self.set, true);
+        (self.set, self.rider)
+    }
 }
 
 fn no_signal(input: InputInfo, s: &SurveyResult) -> Report {
@@ -515,3 +683,6 @@ pub fn build_report(input: InputInfo, tr: &mut ToneTracker, fs: u32) -> Report {
     };
     rep
 }
+
+#[cfg(test)]
+mod reading_tests;

@@ -79,19 +79,19 @@ fn band_for(fs: u32, c: &Candidate, all: &[&Candidate], main: bool) -> Band {
         .iter()
         .filter(|o| (o.frequency_hz - c.frequency_hz).abs() >= MIN_SEPARATION_HZ)
         .filter(|o| o.on_power > c.on_power * 10f64.powf(-NOTCH_BELOW_DB / 10.0))
-        .map(|o| o.frequency_hz)
+        .map(|o| on_grid(o.frequency_hz))
         .collect();
     let band = if main {
-        Band::envelope(fs as f64, c.frequency_hz)
+        Band::envelope(fs as f64, on_grid(c.frequency_hz))
     } else {
         let nearest_stronger = all
             .iter()
             .filter(|o| o.on_power > c.on_power)
-            .map(|o| (o.frequency_hz - c.frequency_hz).abs())
+            .map(|o| (on_grid(o.frequency_hz) - on_grid(c.frequency_hz)).abs())
             .fold(f64::INFINITY, f64::min);
         let half =
             (0.5 * nearest_stronger - OTHER_ROLLOFF_HZ).clamp(OTHER_MIN_HALF_HZ, OTHER_HALF_HZ);
-        Band::narrow(c.frequency_hz, half, OTHER_ROLLOFF_HZ)
+        Band::narrow(on_grid(c.frequency_hz), half, OTHER_ROLLOFF_HZ)
     };
     band.with_notches(&far)
 }
@@ -115,14 +115,56 @@ pub struct ToneResult {
     pub unit_s: Option<f64>,
 }
 
+/// The bands of the trackers a [`ToneSet`] holds for this choice: the main
+/// tone's, then each keyed other tone's, in the order of `others`.
+fn bands(fs: u32, main: &Candidate, others: &[Candidate]) -> Vec<Band> {
+    let all: Vec<&Candidate> = std::iter::once(main).chain(others).collect();
+    std::iter::once(band_for(fs, main, &all, true))
+        .chain(
+            others
+                .iter()
+                .filter(|c| c.keyed)
+                .map(|c| band_for(fs, c, &all, false)),
+        )
+        .collect()
+}
+
+/// Spacing of the grid the bands' centres and notches are put on, Hz. The
+/// survey's pitch moves by thousandths of a hertz between its first seconds
+/// and the whole recording; on this grid both give the same bands (but
+/// where they straddle a grid line), so a choice made early sets up exactly
+/// the trackers the final one would. The main tone's band is flat for
+/// ±2 kHz and a notch reaches ±80 Hz: a quarter hertz off either changes
+/// nothing a figure shows.
+pub const BAND_GRID_HZ: f64 = 0.5;
+
+/// `f` on the grid of [`BAND_GRID_HZ`].
+pub fn on_grid(f: f64) -> f64 {
+    (f / BAND_GRID_HZ).round() * BAND_GRID_HZ
+}
+
+/// Whether two bands are the same: edges, roll-offs, centre, notches.
+fn same_band(a: &Band, b: &Band) -> bool {
+    a.center_hz == b.center_hz
+        && a.lo_hz == b.lo_hz
+        && a.hi_hz == b.hi_hz
+        && a.lo_rolloff_hz == b.lo_rolloff_hz
+        && a.hi_rolloff_hz == b.hi_rolloff_hz
+        && a.notch_count == b.notch_count
+        && a.notches[..a.notch_count] == b.notches[..b.notch_count]
+}
+
 impl ToneSet {
     pub fn new(fs: u32, main: &Candidate, others: &[Candidate]) -> ToneSet {
-        let all: Vec<&Candidate> = std::iter::once(main).chain(others).collect();
-        let mut trackers = vec![ToneTracker::with_band(fs, band_for(fs, main, &all, true))];
-        for c in others.iter().filter(|c| c.keyed) {
+        let mut bands = bands(fs, main, others).into_iter();
+        let mut trackers = vec![ToneTracker::with_band(
+            fs,
+            bands.next().expect("the main tone's band"),
+        )];
+        for band in bands {
             trackers.push(ToneTracker::with_band_config(
                 fs,
-                band_for(fs, c, &all, false),
+                band,
                 TrackerConfig {
                     keep_traces: false,
                     ..TrackerConfig::default()
@@ -134,6 +176,39 @@ impl ToneSet {
             others: others.to_vec(),
             trackers,
         }
+    }
+
+    /// Whether this set, made from an early look at the recording, holds
+    /// the trackers a set made from the final choice (`main`, `others`)
+    /// would hold: the same channel, the same tones keyed alike, and the
+    /// same band for every tracker. Then what it measured is what that set
+    /// would have measured.
+    pub fn fits(&self, fs: u32, main: &Candidate, others: &[Candidate]) -> bool {
+        if self.main.channel != main.channel
+            || self.others.len() != others.len()
+            || !self
+                .others
+                .iter()
+                .zip(others)
+                .all(|(a, b)| a.keyed == b.keyed)
+        {
+            return false;
+        }
+        let want = bands(fs, main, others);
+        want.len() == self.trackers.len()
+            && want
+                .iter()
+                .zip(&self.trackers)
+                .all(|(b, t)| same_band(&t.downconverter().band(), b))
+    }
+
+    /// Takes the final survey's records of the tones (the main candidate,
+    /// the steady tones' pitches and levels) in place of the early ones
+    /// the set was made from; the trackers stay. Call only when
+    /// [`fits`](Self::fits) said so.
+    pub fn adopt(&mut self, main: &Candidate, others: &[Candidate]) {
+        self.main = main.clone();
+        self.others = others.to_vec();
     }
 
     /// The main tone's tracker.
@@ -152,6 +227,37 @@ impl ToneSet {
 
     pub fn finish(&mut self) {
         self.trackers.par_iter_mut().for_each(|t| t.finish());
+    }
+
+    /// `push` with the block also through a front end of `front.0`
+    /// (`front.1`, see `ToneTracker::push_decimated`): the trackers whose
+    /// downconverter decimates by that factor take it instead of
+    /// decimating the block again.
+    pub fn push_shared(&mut self, mono: &[f32], front: (usize, &[f32])) {
+        let one = |t: &mut ToneTracker| {
+            if t.downconverter().decimation_front() == front.0 {
+                t.push_decimated(mono.len(), front.1);
+            } else {
+                t.push(mono);
+            }
+        };
+        if self.trackers.len() == 1 {
+            one(&mut self.trackers[0]);
+        } else {
+            self.trackers.par_iter_mut().for_each(one);
+        }
+    }
+
+    /// `finish` after [`push_shared`](Self::push_shared): `tail` is the
+    /// shared front end's flush output.
+    pub fn finish_shared(&mut self, front: (usize, &[f32])) {
+        self.trackers.par_iter_mut().for_each(|t| {
+            if t.downconverter().decimation_front() == front.0 {
+                t.finish_decimated(front.1);
+            } else {
+                t.finish();
+            }
+        });
     }
 
     /// The main tone's report (with `tones[]` and the warnings about the

@@ -713,11 +713,36 @@ impl ToneTracker {
         self.ingest(from, false);
     }
 
+    /// `push` for input already through a front end like the
+    /// downconverter's (see `Downconverter::push_decimated`): `input_len`
+    /// samples of the channel, `front` their decimation.
+    pub fn push_decimated(&mut self, input_len: usize, front: &[f32]) {
+        self.input_samples += input_len as u64;
+        self.compact();
+        let from = self.zbuf.len();
+        self.dc.push_decimated(front, &mut self.zbuf);
+        self.ingest(from, false);
+    }
+
     /// Ends the stream: flushes the filter and measures what is left.
     pub fn finish(&mut self) {
         self.compact();
         let from = self.zbuf.len();
         self.dc.flush(&mut self.zbuf);
+        self.finish_from(from);
+    }
+
+    /// `finish` for a tracker fed by [`push_decimated`](Self::push_decimated):
+    /// `tail` is what the caller's decimator gave at its flush.
+    pub fn finish_decimated(&mut self, tail: &[f32]) {
+        self.compact();
+        let from = self.zbuf.len();
+        self.dc.flush_decimated(tail, &mut self.zbuf);
+        self.finish_from(from);
+    }
+
+    /// The end of the stream once the filter is flushed into `zbuf[from..]`.
+    fn finish_from(&mut self, from: usize) {
         self.ingest(from, true);
         // An element whose 50 % instant falls at the very start or end of
         // the recording was cut by it (an abrupt start or end reads as an

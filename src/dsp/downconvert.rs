@@ -438,6 +438,27 @@ impl Downconverter {
         self.front_out = front_out;
     }
 
+    /// `push` for a caller that decimates the input itself: `front` is the
+    /// output of a `Decimator` of [`decimation_front`](Self::decimation_front)
+    /// fed the same channel from its first sample, which is what this
+    /// downconverter's own front end would make of it. Its own front end is
+    /// then left unused: feed one downconverter either way, not both.
+    pub fn push_decimated(&mut self, front: &[f32], out: &mut Vec<Complex32>) {
+        self.front_out.clear();
+        self.front_out.extend_from_slice(front);
+        self.push_front(front, out);
+    }
+
+    /// `flush` for a downconverter fed by [`push_decimated`](Self::push_decimated):
+    /// `tail` is what the caller's decimator gave at its `flush`.
+    pub fn flush_decimated(&mut self, tail: &[f32], out: &mut Vec<Complex32>) {
+        self.front_out.clear();
+        self.front_out.extend_from_slice(tail);
+        self.push_front(tail, out);
+        let z = vec![0.0f32; self.hop + self.m];
+        self.push_front(&z, out);
+    }
+
     /// The front end's output (the input decimated by its factor) for the
     /// last `push` or `flush`: what another consumer of the same decimated
     /// stream can take instead of decimating again.

@@ -101,6 +101,8 @@ struct Chan {
     raw: Vec<f32>,
     front: Decimator,
     pending: Vec<f32>,
+    /// What `front` made of the latest block (see [`Survey::fresh`]).
+    fresh: Vec<f32>,
     sum_p: Vec<f64>,
     sum_p2: Vec<f64>,
     frames: u64,
@@ -190,6 +192,7 @@ impl Survey {
                     raw: Vec::new(),
                     front: Decimator::new(factor),
                     pending: Vec::with_capacity(2 * nfft),
+                    fresh: Vec::new(),
                     sum_p: vec![0.0; nb],
                     sum_p2: vec![0.0; nb],
                     frames: 0,
@@ -234,7 +237,10 @@ impl Survey {
                 &ch.raw
             };
             sample_stats(own, &mut ch.stats);
+            let old = ch.pending.len();
             ch.front.push(own, &mut ch.pending);
+            ch.fresh.clear();
+            ch.fresh.extend_from_slice(&ch.pending[old..]);
             ch.stats.samples += (interleaved.len() / nc) as u64;
             let mut start = 0;
             while ch.pending.len() - start >= self.nfft {
@@ -281,8 +287,71 @@ impl Survey {
         }
     }
 
+    /// Decimation factor of the survey's front end.
+    pub fn factor(&self) -> usize {
+        self.factor
+    }
+
+    /// Channel `c` of the latest pushed block through the survey's front
+    /// end (a `Decimator` of [`factor`](Self::factor) fed the channel from
+    /// its first sample): what a downconverter with the same front end can
+    /// take instead of decimating the channel again.
+    pub fn fresh(&self, c: usize) -> &[f32] {
+        &self.chans[c].fresh
+    }
+
+    /// Ends every channel's front end (`Decimator::flush`) and returns what
+    /// each gave; the survey's own figures do not change.
+    pub fn flush_fronts(&mut self) -> Vec<Vec<f32>> {
+        self.chans
+            .iter_mut()
+            .map(|ch| {
+                let mut tail = Vec::new();
+                ch.front.flush(&mut tail);
+                tail
+            })
+            .collect()
+    }
+
+    /// Input frames pushed so far (per channel).
+    pub fn frames_seen(&self) -> u64 {
+        self.chans.first().map_or(0, |c| c.stats.samples)
+    }
+
+    /// The spectrogram's layout (no columns yet, the same for every channel), when the
+    /// spectrogram is kept: what a consumer checks before the columns exist.
+    pub fn gram_shape(&self) -> Option<SurveyGram> {
+        self.gram_per_col.map(|per_col| SurveyGram {
+            nfft: self.nfft,
+            frames_per_column: per_col,
+            columns: Vec::new(),
+        })
+    }
+
+    /// What the survey finds in the frames pushed so far, without the
+    /// spectrograms; the survey goes on. Lets a caller choose a tone early
+    /// and check the choice against [`finish`](Self::finish).
+    pub fn snapshot(&self) -> SurveyResult {
+        let mut r = self.found();
+        r.spectrograms = Vec::new();
+        r
+    }
+
     /// Finds tone candidates in every channel, strongest first.
-    pub fn finish(self) -> SurveyResult {
+    pub fn finish(mut self) -> SurveyResult {
+        let mut r = self.found();
+        if self.gram_per_col.is_some() {
+            r.spectrograms = self
+                .chans
+                .iter_mut()
+                .map(|ch| std::mem::take(&mut ch.gram))
+                .collect();
+        }
+        r
+    }
+
+    /// Candidates, spectra and channel statistics (spectrograms left empty).
+    fn found(&self) -> SurveyResult {
         let fs = self.fs as f64;
         let nfft = self.nfft;
         let bin_hz = fs / nfft as f64;
@@ -292,12 +361,8 @@ impl Survey {
         let mut candidates = Vec::new();
         let mut spectra = Vec::new();
         let mut channels = Vec::new();
-        let mut spectrograms = Vec::new();
-        for (c, mut ch) in self.chans.into_iter().enumerate() {
+        for (c, ch) in self.chans.iter().enumerate() {
             channels.push(ch.stats.clone());
-            if self.gram_per_col.is_some() {
-                spectrograms.push(std::mem::take(&mut ch.gram));
-            }
             if ch.frames == 0 {
                 spectra.push(vec![0.0; nfft / 2 + 1]);
                 continue;
@@ -394,7 +459,7 @@ impl Survey {
             candidates,
             channels,
             spectra,
-            spectrograms,
+            spectrograms: Vec::new(),
         }
     }
 }
