@@ -97,7 +97,7 @@ const EARLY_FIRST_S: f64 = 10.0;
 const EARLY_EVERY_S: f64 = 5.0;
 /// Most bytes of input held while the tone is not yet chosen. Past it
 /// nothing more is held and the measurement reads the recording again.
-const EARLY_MAX_BYTES: usize = 24 << 20;
+const EARLY_MAX_BYTES: usize = 16 << 20;
 
 /// Analyses one WAV file.
 ///
