@@ -117,6 +117,10 @@ struct Scratch {
     prod: Vec<Complex64>,
     /// First sample of each trace point's window.
     starts: Vec<usize>,
+    /// The pre-filter's kernel with its sigma's bits, and Kay's weights with
+    /// their window length, as last built (the same for every element).
+    kernel: (u64, Vec<f64>),
+    kay: (usize, Vec<f64>),
 }
 
 thread_local! {
@@ -183,10 +187,55 @@ fn grow<T: Copy>(v: &mut Vec<T>, n: usize, fill: T) {
     }
 }
 
+/// `x.round()` (halves away from zero), inline: without SSE4.1 `round` is
+/// a library call, once per trace point. Exact below 2^52 in magnitude,
+/// where trunc(x) and x - trunc(x) are exact; a zero may lose its sign.
+#[inline]
+fn round_index(x: f64) -> f64 {
+    if x.abs() < 4_503_599_627_370_496.0 {
+        let t = x as i64 as f64;
+        let d = x - t;
+        if d >= 0.5 {
+            t + 1.0
+        } else if d <= -0.5 {
+            t - 1.0
+        } else {
+            t
+        }
+    } else {
+        x.round()
+    }
+}
+
 fn trace_with(sc: &mut Scratch, z: &[Complex32], fs: f64, t50r: f64, t50f: f64) -> Trace {
-    let k = super::edges::gaussian_kernel(PREFILTER_SIGMA_S * fs);
-    let h = k.len() / 2;
+    let sigma = PREFILTER_SIGMA_S * fs;
+    if sc.kernel.1.is_empty() || sc.kernel.0 != sigma.to_bits() {
+        sc.kernel = (sigma.to_bits(), super::edges::gaussian_kernel(sigma));
+    }
     let n = ((TRACE_WINDOW_S * fs).round() as usize).max(3);
+    if sc.kay.1.is_empty() || sc.kay.0 != n {
+        sc.kay = (n, kay_weights(n));
+    }
+    let (kernel, kay) = (std::mem::take(&mut sc.kernel), std::mem::take(&mut sc.kay));
+    let out = trace_kernels(sc, &kernel.1, &kay.1, n, z, fs, t50r, t50f);
+    (sc.kernel, sc.kay) = (kernel, kay);
+    out
+}
+
+/// `trace_with` given the pre-filter's kernel `k` and Kay's weights `w` of
+/// an `n`-sample window.
+#[allow(clippy::too_many_arguments)]
+fn trace_kernels(
+    sc: &mut Scratch,
+    k: &[f64],
+    w: &[f64],
+    n: usize,
+    z: &[Complex32],
+    fs: f64,
+    t50r: f64,
+    t50f: f64,
+) -> Trace {
+    let h = k.len() / 2;
     // Only the stretch the Kay windows will read needs filtering; the
     // filtered baseband is taken as zero outside it.
     let lo = ((t50r - n as f64).max(0.0) as usize).min(z.len());
@@ -212,8 +261,8 @@ fn trace_with(sc: &mut Scratch, z: &[Complex32], fs: f64, t50r: f64, t50f: f64) 
         grow(&mut sc.out_re, m, 0.0);
         grow(&mut sc.out_im, m, 0.0);
         let (out_re, out_im) = (&mut sc.out_re[..m], &mut sc.out_im[..m]);
-        convolve_valid(&sc.src_re, &k, out_re);
-        convolve_valid(&sc.src_im, &k, out_im);
+        convolve_valid(&sc.src_re, k, out_re);
+        convolve_valid(&sc.src_im, k, out_im);
         for ((o, r), i) in zf[a - lo..b - lo].iter_mut().zip(&*out_re).zip(&*out_im) {
             *o = Complex32::new(*r as f32, *i as f32);
         }
@@ -235,7 +284,6 @@ fn trace_with(sc: &mut Scratch, z: &[Complex32], fs: f64, t50r: f64, t50f: f64) 
         *o = Complex32::new(acc.re as f32, acc.im as f32);
     }
     let zf = &sc.zf[..hi - lo + 1];
-    let w = kay_weights(n);
     // Lag-one products over the filtered stretch, formed once: trace points
     // are closer than a window, so each product serves several windows.
     let p_hi = hi.min(z.len().saturating_sub(1)).max(lo);
@@ -253,7 +301,7 @@ fn trace_with(sc: &mut Scratch, z: &[Complex32], fs: f64, t50r: f64, t50f: f64) 
     starts.clear();
     let mut c = t50r;
     while c <= t50f {
-        let start = (c - (n as f64 - 1.0) / 2.0).round();
+        let start = round_index(c - (n as f64 - 1.0) / 2.0);
         if start >= 0.0 && (start as usize) + n <= z.len() {
             starts.push(start as usize);
             out.t.push((c - t50r) / fs);
@@ -1282,6 +1330,38 @@ mod tests {
             }
         }
         assert!(solved > 6000, "{solved}");
+    }
+
+    #[test]
+    fn inline_round_equals_round() {
+        // Equal as numbers (a zero may differ in sign, which `start as
+        // usize` ignores): halves, their neighbours, negatives, values
+        // where the fraction runs out, and non-finite ones.
+        let mut st = 3u64;
+        let mut rnd = move || {
+            st = st
+                .wrapping_mul(6_364_136_223_846_793_005)
+                .wrapping_add(1_442_695_040_888_963_407);
+            (st >> 11) as f64 / (1u64 << 53) as f64 - 0.5
+        };
+        let mut xs = vec![0.0, -0.0, 0.5, -0.5, 1.5, -1.5, 2.5, 0.49999999999999994];
+        xs.extend([f64::INFINITY, f64::NEG_INFINITY, 1e300, -1e300]);
+        for e in [0.0f64, 1.0, 52.0, 53.0] {
+            let p = 2f64.powf(e);
+            for d in [-1.0, -0.5, 0.0, 0.5, 1.0] {
+                xs.extend([p + d, -(p + d)]);
+            }
+        }
+        for i in 0..20_000 {
+            let x = rnd() * 10f64.powi(i % 9);
+            let h = (x.trunc() + 0.5).copysign(x);
+            xs.extend([x, h, h.next_up(), h.next_down()]);
+        }
+        for x in xs {
+            let (a, b) = (round_index(x), x.round());
+            assert!(a == b, "{x:e}: {a} {b}");
+        }
+        assert!(round_index(f64::NAN).is_nan());
     }
 
     #[test]
