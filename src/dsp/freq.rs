@@ -315,7 +315,7 @@ fn trace_kernels(
         if let Some(g) = starts.get(i..i + KAY_LANES) {
             if g.iter().all(|&s0| shared(s0)) {
                 let offs: [usize; KAY_LANES] = std::array::from_fn(|l| g[l] - lo);
-                for acc in kay_sums(prod, offs, &w) {
+                for acc in kay_sums(prod, offs, w) {
                     let (f, wt) = kay_finish(acc, fs);
                     out.f.push(f);
                     out.w.push(wt);
@@ -326,7 +326,7 @@ fn trace_kernels(
         }
         let s0 = starts[i];
         let (f, wt) = if shared(s0) {
-            kay_from_products(&prod[s0 - lo..s0 - lo + w.len()], &w, fs)
+            kay_from_products(&prod[s0 - lo..s0 - lo + w.len()], w, fs)
         } else {
             // Not reached for 50 % instants inside `z`; kept for safety.
             let zp: Vec<Complex32> = (s0..s0 + n)
@@ -338,7 +338,7 @@ fn trace_kernels(
                         .unwrap_or_default()
                 })
                 .collect();
-            kay_frequency(&zp, 0, &w, fs)
+            kay_frequency(&zp, 0, w, fs)
         };
         out.f.push(f);
         out.w.push(wt);
@@ -1312,7 +1312,7 @@ mod tests {
                 for x in row.iter_mut() {
                     *x = match round % 5 {
                         0 => (4.0 * rnd()).round(),
-                        _ => rnd() * 10f64.powi((round % 7) as i32 - 3),
+                        _ => rnd() * 10f64.powi(round % 7 - 3),
                     };
                 }
             }
