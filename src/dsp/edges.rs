@@ -422,6 +422,21 @@ pub fn occupancy_crossing<E: Env + ?Sized>(
     rising: bool,
     p: (f64, f64),
 ) -> f64 {
+    // One build per direction: the side test in the loops is then a single
+    // comparison (the same one).
+    if rising {
+        occupancy_dir::<true, E>(env, level, w, p)
+    } else {
+        occupancy_dir::<false, E>(env, level, w, p)
+    }
+}
+
+fn occupancy_dir<const RISING: bool, E: Env + ?Sized>(
+    env: &E,
+    level: f64,
+    w: (f64, f64),
+    p: (f64, f64),
+) -> f64 {
     let (a, b) = w;
     let n = env.len();
     if n < 2 || b <= a {
@@ -429,7 +444,7 @@ pub fn occupancy_crossing<E: Env + ?Sized>(
     }
     let a = a.max(0.0);
     let b = b.min((n - 1) as f64);
-    let before = |v: f64| if rising { v < level } else { v >= level };
+    let before = |v: f64| if RISING { v < level } else { v >= level };
     // Share of segment [s0, s1] within sample interval i on the "before"
     // side, the envelope linear between samples i and i + 1.
     let part = |i: usize, s0: f64, s1: f64, e0: f64, e1: f64| {

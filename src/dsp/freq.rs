@@ -117,6 +117,10 @@ struct Scratch {
     prod: Vec<Complex64>,
     /// First sample of each trace point's window.
     starts: Vec<usize>,
+    /// The pre-filter's kernel with its sigma's bits, and Kay's weights with
+    /// their window length, as last built (the same for every element).
+    kernel: (u64, Vec<f64>),
+    kay: (usize, Vec<f64>),
 }
 
 thread_local! {
@@ -175,18 +179,74 @@ fn convolve_valid_body<const B: usize>(src: &[f64], k: &[f64], out: &mut [f64]) 
     }
 }
 
+/// Makes `v` at least `n` long, filling only what it had never held: the
+/// caller overwrites `v[..n]` before reading it.
+fn grow<T: Copy>(v: &mut Vec<T>, n: usize, fill: T) {
+    if v.len() < n {
+        v.resize(n, fill);
+    }
+}
+
+/// `x.round()` (halves away from zero), inline: without SSE4.1 `round` is
+/// a library call, once per trace point. Exact below 2^52 in magnitude,
+/// where trunc(x) and x - trunc(x) are exact; a zero may lose its sign.
+#[inline]
+fn round_index(x: f64) -> f64 {
+    if x.abs() < 4_503_599_627_370_496.0 {
+        let t = x as i64 as f64;
+        let d = x - t;
+        if d >= 0.5 {
+            t + 1.0
+        } else if d <= -0.5 {
+            t - 1.0
+        } else {
+            t
+        }
+    } else {
+        x.round()
+    }
+}
+
 fn trace_with(sc: &mut Scratch, z: &[Complex32], fs: f64, t50r: f64, t50f: f64) -> Trace {
-    let k = super::edges::gaussian_kernel(PREFILTER_SIGMA_S * fs);
-    let h = k.len() / 2;
+    let sigma = PREFILTER_SIGMA_S * fs;
+    if sc.kernel.1.is_empty() || sc.kernel.0 != sigma.to_bits() {
+        sc.kernel = (sigma.to_bits(), super::edges::gaussian_kernel(sigma));
+    }
     let n = ((TRACE_WINDOW_S * fs).round() as usize).max(3);
+    if sc.kay.1.is_empty() || sc.kay.0 != n {
+        sc.kay = (n, kay_weights(n));
+    }
+    let (kernel, kay) = (std::mem::take(&mut sc.kernel), std::mem::take(&mut sc.kay));
+    let out = trace_kernels(sc, &kernel.1, &kay.1, n, z, fs, t50r, t50f);
+    (sc.kernel, sc.kay) = (kernel, kay);
+    out
+}
+
+/// `trace_with` given the pre-filter's kernel `k` and Kay's weights `w` of
+/// an `n`-sample window.
+#[allow(clippy::too_many_arguments)]
+fn trace_kernels(
+    sc: &mut Scratch,
+    k: &[f64],
+    w: &[f64],
+    n: usize,
+    z: &[Complex32],
+    fs: f64,
+    t50r: f64,
+    t50f: f64,
+) -> Trace {
+    let h = k.len() / 2;
     // Only the stretch the Kay windows will read needs filtering; the
     // filtered baseband is taken as zero outside it.
     let lo = ((t50r - n as f64).max(0.0) as usize).min(z.len());
     let hi = ((t50f + n as f64 + 2.0) as usize).min(z.len()).max(lo);
+    // Every sample of `zf` below is written before it is read, so the
+    // buffers only grow (no zero fill per element); one more (zero) sample
+    // past `hi`, which the last product reads.
     let zf = &mut sc.zf;
-    // One more (zero) sample past `hi`, which the last product reads.
-    zf.clear();
-    zf.resize(hi - lo + 1, Complex32::new(0.0, 0.0));
+    grow(zf, hi - lo + 1, Complex32::new(0.0, 0.0));
+    let zf = &mut zf[..hi - lo + 1];
+    zf[hi - lo] = Complex32::new(0.0, 0.0);
     // Where the whole kernel fits: blocks of outputs at once, a loop the
     // compiler vectorizes; each output still adds its taps in kernel order.
     let (a, b) = (lo.max(h), hi.min(z.len().saturating_sub(h)));
@@ -198,17 +258,12 @@ fn trace_with(sc: &mut Scratch, z: &[Complex32], fs: f64, t50r: f64, t50f: f64) 
         sc.src_im.clear();
         sc.src_im
             .extend(z[a - h..b + h].iter().map(|v| v.im as f64));
-        sc.out_re.clear();
-        sc.out_re.resize(m, 0.0);
-        sc.out_im.clear();
-        sc.out_im.resize(m, 0.0);
-        convolve_valid(&sc.src_re, &k, &mut sc.out_re);
-        convolve_valid(&sc.src_im, &k, &mut sc.out_im);
-        for ((o, r), i) in zf[a - lo..b - lo]
-            .iter_mut()
-            .zip(&sc.out_re)
-            .zip(&sc.out_im)
-        {
+        grow(&mut sc.out_re, m, 0.0);
+        grow(&mut sc.out_im, m, 0.0);
+        let (out_re, out_im) = (&mut sc.out_re[..m], &mut sc.out_im[..m]);
+        convolve_valid(&sc.src_re, k, out_re);
+        convolve_valid(&sc.src_im, k, out_im);
+        for ((o, r), i) in zf[a - lo..b - lo].iter_mut().zip(&*out_re).zip(&*out_im) {
             *o = Complex32::new(*r as f32, *i as f32);
         }
     }
@@ -228,8 +283,7 @@ fn trace_with(sc: &mut Scratch, z: &[Complex32], fs: f64, t50r: f64, t50f: f64) 
         }
         *o = Complex32::new(acc.re as f32, acc.im as f32);
     }
-    let zf = &sc.zf[..];
-    let w = kay_weights(n);
+    let zf = &sc.zf[..hi - lo + 1];
     // Lag-one products over the filtered stretch, formed once: trace points
     // are closer than a window, so each product serves several windows.
     let p_hi = hi.min(z.len().saturating_sub(1)).max(lo);
@@ -247,7 +301,7 @@ fn trace_with(sc: &mut Scratch, z: &[Complex32], fs: f64, t50r: f64, t50f: f64) 
     starts.clear();
     let mut c = t50r;
     while c <= t50f {
-        let start = (c - (n as f64 - 1.0) / 2.0).round();
+        let start = round_index(c - (n as f64 - 1.0) / 2.0);
         if start >= 0.0 && (start as usize) + n <= z.len() {
             starts.push(start as usize);
             out.t.push((c - t50r) / fs);
@@ -261,7 +315,7 @@ fn trace_with(sc: &mut Scratch, z: &[Complex32], fs: f64, t50r: f64, t50f: f64) 
         if let Some(g) = starts.get(i..i + KAY_LANES) {
             if g.iter().all(|&s0| shared(s0)) {
                 let offs: [usize; KAY_LANES] = std::array::from_fn(|l| g[l] - lo);
-                for acc in kay_sums(prod, offs, &w) {
+                for acc in kay_sums(prod, offs, w) {
                     let (f, wt) = kay_finish(acc, fs);
                     out.f.push(f);
                     out.w.push(wt);
@@ -272,7 +326,7 @@ fn trace_with(sc: &mut Scratch, z: &[Complex32], fs: f64, t50r: f64, t50f: f64) 
         }
         let s0 = starts[i];
         let (f, wt) = if shared(s0) {
-            kay_from_products(&prod[s0 - lo..s0 - lo + w.len()], &w, fs)
+            kay_from_products(&prod[s0 - lo..s0 - lo + w.len()], w, fs)
         } else {
             // Not reached for 50 % instants inside `z`; kept for safety.
             let zp: Vec<Complex32> = (s0..s0 + n)
@@ -284,7 +338,7 @@ fn trace_with(sc: &mut Scratch, z: &[Complex32], fs: f64, t50r: f64, t50f: f64) 
                         .unwrap_or_default()
                 })
                 .collect();
-            kay_frequency(&zp, 0, &w, fs)
+            kay_frequency(&zp, 0, w, fs)
         };
         out.f.push(f);
         out.w.push(wt);
@@ -311,30 +365,43 @@ pub struct ChirpFit {
 }
 
 /// Solves the k x k normal equations (k <= 3) by Gaussian elimination with
-/// partial pivoting; None when singular.
+/// partial pivoting; None when singular. Each size is compiled on its own
+/// (`solve_k`), so the loops unroll; the operations are those of the
+/// runtime-sized elimination (`solve_reference`, checked in a test).
 fn solve(a: [[f64; 3]; 3], b: [f64; 3], k: usize) -> Option<[f64; 3]> {
+    debug_assert!(k <= 3);
+    match k {
+        0 => solve_k::<0>(a, b),
+        1 => solve_k::<1>(a, b),
+        2 => solve_k::<2>(a, b),
+        _ => solve_k::<3>(a, b),
+    }
+}
+
+#[inline(always)]
+fn solve_k<const K: usize>(a: [[f64; 3]; 3], b: [f64; 3]) -> Option<[f64; 3]> {
     let mut m = a;
     let mut v = b;
-    for p in 0..k {
-        let piv = (p..k).max_by(|&i, &j| m[i][p].abs().total_cmp(&m[j][p].abs()))?;
+    for p in 0..K {
+        let piv = (p..K).max_by(|&i, &j| m[i][p].abs().total_cmp(&m[j][p].abs()))?;
         if m[piv][p].abs() < 1e-12 * (1.0 + m[p][p].abs()) {
             return None;
         }
         m.swap(p, piv);
         v.swap(p, piv);
-        for r in p + 1..k {
+        for r in p + 1..K {
             let f = m[r][p] / m[p][p];
             let pivot_row = m[p];
-            for (c, x) in m[r].iter_mut().enumerate().take(k).skip(p) {
+            for (c, x) in m[r].iter_mut().enumerate().take(K).skip(p) {
                 *x -= f * pivot_row[c];
             }
             v[r] -= f * v[p];
         }
     }
     let mut beta = [0.0; 3];
-    for p in (0..k).rev() {
+    for p in (0..K).rev() {
         let mut s = v[p];
-        for c in p + 1..k {
+        for c in p + 1..K {
             s -= m[p][c] * beta[c];
         }
         beta[p] = s / m[p][p];
@@ -832,10 +899,27 @@ pub fn chirp(tr: &Trace) -> ChirpFit {
         return ChirpFit::default();
     }
     let dur = tr.t[n - 1];
-    let half: Vec<usize> = (0..n).filter(|&i| tr.t[i] >= dur / 2.0).collect();
-    let hv: Vec<f64> = half.iter().map(|&i| tr.f[i]).collect();
-    let hw: Vec<f64> = half.iter().map(|&i| tr.w[i]).collect();
-    let settled_raw = weighted_median(&hv, &hw);
+    // The settled half: the points at or after dur/2. A trace's times rise,
+    // so those are the run from the first of them to the end, read in place;
+    // times in another order gather the points one by one.
+    let in_half = |x: f64| x >= dur / 2.0;
+    let h0 = tr.t.iter().position(|&x| in_half(x)).unwrap_or(n);
+    let half: Option<Vec<usize>> = if tr.t[h0..].iter().all(|&x| in_half(x)) {
+        None
+    } else {
+        Some((0..n).filter(|&i| in_half(tr.t[i])).collect())
+    };
+    let pick = |v: &'_ [f64]| -> Vec<f64> {
+        half.as_ref()
+            .map_or_else(Vec::new, |ix| ix.iter().map(|&i| v[i]).collect())
+    };
+    let (hv_g, hw_g) = (pick(&tr.f), pick(&tr.w));
+    let (hv, hw) = if half.is_some() {
+        (&hv_g[..], &hw_g[..])
+    } else {
+        (&tr.f[h0..], &tr.w[h0..])
+    };
+    let settled_raw = weighted_median(hv, hw);
     let raw =
         tr.f.iter()
             .map(|f| (f - settled_raw).abs())
@@ -845,15 +929,20 @@ pub fn chirp(tr: &Trace) -> ChirpFit {
     if wsum <= 0.0 {
         return ChirpFit::default();
     }
-    let idx: Vec<usize> = (0..n).step_by(FIT_STRIDE).collect();
-    let m = idx.len();
-    let t: Vec<f64> = idx.iter().map(|&i| tr.t[i]).collect();
-    let f: Vec<f64> = idx.iter().map(|&i| tr.f[i]).collect();
-    let ws: f64 = idx.iter().map(|&i| tr.w[i]).sum();
-    let w: Vec<f64> = idx
-        .iter()
-        .map(|&i| tr.w[i] / ws.max(1e-300) * m as f64)
-        .collect();
+    // Every `FIT_STRIDE`th point: the weights' sum first, then the three
+    // vectors in one pass.
+    let m = n.div_ceil(FIT_STRIDE);
+    let ws: f64 = tr.w.iter().step_by(FIT_STRIDE).sum();
+    let (mut t, mut f, mut w) = (
+        Vec::with_capacity(m),
+        Vec::with_capacity(m),
+        Vec::with_capacity(m),
+    );
+    for i in (0..n).step_by(FIT_STRIDE) {
+        t.push(tr.t[i]);
+        f.push(tr.f[i]);
+        w.push(tr.w[i] / ws.max(1e-300) * m as f64);
+    }
     let mid = dur / 2.0;
     // Trace points overlap: about one independent point per window. The
     // criterion is Akaike's (2 per parameter) on that effective count.
@@ -893,7 +982,12 @@ pub fn chirp(tr: &Trace) -> ChirpFit {
                 (0..model_cols(model_id)).map(|c| beta[c] * r[c]).sum()
             })
             .collect();
-    let mv: Vec<f64> = half.iter().map(|&i| model[i]).collect();
+    let mv_g = pick(&model);
+    let mv = if half.is_some() {
+        &mv_g[..]
+    } else {
+        &model[h0..]
+    };
     // The constant model is one value at every point: its weighted median
     // is that value (no sort needed).
     let settled = if model_id == 0
@@ -902,15 +996,14 @@ pub fn chirp(tr: &Trace) -> ChirpFit {
     {
         mv[0]
     } else {
-        weighted_median(&mv, &hw)
+        weighted_median(mv, hw)
     };
     let chirp = model
         .iter()
         .map(|v| (v - settled).abs())
         .fold(0.0, f64::max);
-    let wn: Vec<f64> = tr.w.iter().map(|v| v / wsum).collect();
     let res: f64 = (0..n)
-        .map(|i| wn[i] * (tr.f[i] - model[i]).powi(2))
+        .map(|i| tr.w[i] / wsum * (tr.f[i] - model[i]).powi(2))
         .sum::<f64>();
     ChirpFit {
         settled_hz: settled,
@@ -926,6 +1019,105 @@ pub fn chirp(tr: &Trace) -> ChirpFit {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// The chirp fit with its working vectors gathered one by one: the
+    /// code `chirp` was derived from; test oracle.
+    fn chirp_reference(tr: &Trace) -> ChirpFit {
+        let n = tr.t.len();
+        if n < 4 {
+            return ChirpFit::default();
+        }
+        let dur = tr.t[n - 1];
+        let half: Vec<usize> = (0..n).filter(|&i| tr.t[i] >= dur / 2.0).collect();
+        let hv: Vec<f64> = half.iter().map(|&i| tr.f[i]).collect();
+        let hw: Vec<f64> = half.iter().map(|&i| tr.w[i]).collect();
+        let settled_raw = weighted_median(&hv, &hw);
+        let raw =
+            tr.f.iter()
+                .map(|f| (f - settled_raw).abs())
+                .fold(0.0, f64::max);
+
+        let wsum: f64 = tr.w.iter().sum();
+        if wsum <= 0.0 {
+            return ChirpFit::default();
+        }
+        let idx: Vec<usize> = (0..n).step_by(FIT_STRIDE).collect();
+        let m = idx.len();
+        let t: Vec<f64> = idx.iter().map(|&i| tr.t[i]).collect();
+        let f: Vec<f64> = idx.iter().map(|&i| tr.f[i]).collect();
+        let ws: f64 = idx.iter().map(|&i| tr.w[i]).sum();
+        let w: Vec<f64> = idx
+            .iter()
+            .map(|&i| tr.w[i] / ws.max(1e-300) * m as f64)
+            .collect();
+        let mid = dur / 2.0;
+        // Trace points overlap: about one independent point per window. The
+        // criterion is Akaike's (2 per parameter) on that effective count.
+        let n_eff = (dur / TRACE_WINDOW_S).max(2.0);
+        let score = |rss: f64, k: f64| n_eff * (rss.max(1e-18) / m as f64).ln() + k * 2.0;
+
+        // (score, model, tau, beta); model u8::MAX: no fit yet.
+        let data = FitData::new(&t, &f, &w, mid);
+        let mut best: (f64, u8, f64, [f64; 3]) = (f64::INFINITY, u8::MAX, 0.0, [0.0; 3]);
+        for model in [0u8, 1] {
+            if let Some((rss, beta)) = data.fit(model, None) {
+                let sc = score(rss, model_cols(model) as f64);
+                if sc < best.0 {
+                    best = (sc, model, 0.0, beta);
+                }
+            }
+        }
+        for (model, r) in [2u8, 3].into_iter().zip(exp_search(&data, dur, score)) {
+            if let Some((s2, tau, beta)) = r {
+                if s2 < best.0 {
+                    best = (s2, model, tau, beta);
+                }
+            }
+        }
+        if best.1 == u8::MAX {
+            return ChirpFit {
+                settled_hz: settled_raw,
+                raw_hz: raw,
+                ..Default::default()
+            };
+        }
+        let (model_id, tau, beta) = (best.1, best.2, best.3);
+        let model: Vec<f64> =
+            tr.t.iter()
+                .map(|&x| {
+                    let r = basis(model_id, tau, x, mid);
+                    (0..model_cols(model_id)).map(|c| beta[c] * r[c]).sum()
+                })
+                .collect();
+        let mv: Vec<f64> = half.iter().map(|&i| model[i]).collect();
+        // The constant model is one value at every point: its weighted median
+        // is that value (no sort needed).
+        let settled = if model_id == 0
+            && mv.first().is_some_and(|v| v.is_finite())
+            && hw.iter().any(|&w| w > 0.0)
+        {
+            mv[0]
+        } else {
+            weighted_median(&mv, &hw)
+        };
+        let chirp = model
+            .iter()
+            .map(|v| (v - settled).abs())
+            .fold(0.0, f64::max);
+        let wn: Vec<f64> = tr.w.iter().map(|v| v / wsum).collect();
+        let res: f64 = (0..n)
+            .map(|i| wn[i] * (tr.f[i] - model[i]).powi(2))
+            .sum::<f64>();
+        ChirpFit {
+            settled_hz: settled,
+            // The model smooths the trace; it can never deviate more than the trace did.
+            chirp_hz: if model_id == 0 { 0.0 } else { chirp.min(raw) },
+            raw_hz: raw,
+            noise_hz: res.sqrt(),
+            model: model_id,
+            tau_s: tau,
+        }
+    }
 
     /// Kay's estimate one window at a time, the weight by `hypot`: the
     /// `kay_from_products` `trace` was derived from; test oracle.
@@ -1067,6 +1259,191 @@ mod tests {
         let r = [0.99, 0.9, 0.5, 0.999, 0.7, 0.1, 0.95, 0.8];
         assert_eq!(horner(&coef, r), horner_body(&coef, r));
         assert_eq!(horner(&coef, [0.97, 0.6]), horner_body(&coef, [0.97, 0.6]));
+    }
+
+    /// Gaussian elimination with the size known at run time: the `solve`
+    /// the per-size builds were derived from; test oracle.
+    fn solve_reference(a: [[f64; 3]; 3], b: [f64; 3], k: usize) -> Option<[f64; 3]> {
+        let mut m = a;
+        let mut v = b;
+        for p in 0..k {
+            let piv = (p..k).max_by(|&i, &j| m[i][p].abs().total_cmp(&m[j][p].abs()))?;
+            if m[piv][p].abs() < 1e-12 * (1.0 + m[p][p].abs()) {
+                return None;
+            }
+            m.swap(p, piv);
+            v.swap(p, piv);
+            for r in p + 1..k {
+                let f = m[r][p] / m[p][p];
+                let pivot_row = m[p];
+                for (c, x) in m[r].iter_mut().enumerate().take(k).skip(p) {
+                    *x -= f * pivot_row[c];
+                }
+                v[r] -= f * v[p];
+            }
+        }
+        let mut beta = [0.0; 3];
+        for p in (0..k).rev() {
+            let mut s = v[p];
+            for c in p + 1..k {
+                s -= m[p][c] * beta[c];
+            }
+            beta[p] = s / m[p][p];
+        }
+        Some(beta)
+    }
+
+    #[test]
+    fn sized_solve_equals_the_runtime_sized_solve() {
+        // The same operations in the same order: equal bit for bit, None
+        // alike, over random systems of each size with ties between pivot
+        // candidates and singular ones mixed in.
+        let mut st = 7u64;
+        let mut rnd = move || {
+            st = st
+                .wrapping_mul(6_364_136_223_846_793_005)
+                .wrapping_add(1_442_695_040_888_963_407);
+            (st >> 11) as f64 / (1u64 << 53) as f64 - 0.5
+        };
+        let mut solved = 0;
+        for round in 0..3000 {
+            let mut a = [[0.0f64; 3]; 3];
+            for row in a.iter_mut() {
+                for x in row.iter_mut() {
+                    *x = match round % 5 {
+                        0 => (4.0 * rnd()).round(),
+                        _ => rnd() * 10f64.powi(round % 7 - 3),
+                    };
+                }
+            }
+            if round % 11 == 0 {
+                a[1] = a[0];
+            }
+            let b = [rnd(), rnd(), rnd()];
+            for k in 0..=3 {
+                let (x, y) = (solve(a, b, k), solve_reference(a, b, k));
+                assert_eq!(
+                    x.map(|v| v.map(f64::to_bits)),
+                    y.map(|v| v.map(f64::to_bits))
+                );
+                solved += x.is_some() as usize;
+            }
+        }
+        assert!(solved > 6000, "{solved}");
+    }
+
+    #[test]
+    fn inline_round_equals_round() {
+        // Equal as numbers (a zero may differ in sign, which `start as
+        // usize` ignores): halves, their neighbours, negatives, values
+        // where the fraction runs out, and non-finite ones.
+        let mut st = 3u64;
+        let mut rnd = move || {
+            st = st
+                .wrapping_mul(6_364_136_223_846_793_005)
+                .wrapping_add(1_442_695_040_888_963_407);
+            (st >> 11) as f64 / (1u64 << 53) as f64 - 0.5
+        };
+        let mut xs = vec![0.0, -0.0, 0.5, -0.5, 1.5, -1.5, 2.5, 0.49999999999999994];
+        xs.extend([f64::INFINITY, f64::NEG_INFINITY, 1e300, -1e300]);
+        for e in [0.0f64, 1.0, 52.0, 53.0] {
+            let p = 2f64.powf(e);
+            for d in [-1.0, -0.5, 0.0, 0.5, 1.0] {
+                xs.extend([p + d, -(p + d)]);
+            }
+        }
+        for i in 0..20_000 {
+            let x = rnd() * 10f64.powi(i % 9);
+            let h = (x.trunc() + 0.5).copysign(x);
+            xs.extend([x, h, h.next_up(), h.next_down()]);
+        }
+        for x in xs {
+            let (a, b) = (round_index(x), x.round());
+            assert!(a == b, "{x:e}: {a} {b}");
+        }
+        assert!(round_index(f64::NAN).is_nan());
+    }
+
+    #[test]
+    fn chirp_equals_the_gathering_chirp() {
+        // Same operations on the same values in the same order, so every
+        // figure is identical (compared bit for bit). Traces: noisy elements
+        // of several lengths (every model wins somewhere), constant weights
+        // as the mean-element trace has, some zero weights, and times out of
+        // order, where the settled half is not one run at the end.
+        let same = |a: ChirpFit, b: ChirpFit, what: &str| {
+            let bits = |c: ChirpFit| {
+                [c.settled_hz, c.chirp_hz, c.raw_hz, c.noise_hz, c.tau_s].map(f64::to_bits)
+            };
+            assert_eq!((bits(a), a.model), (bits(b), b.model), "{what}");
+        };
+        let mut models = [0usize; 4];
+        for seed in 1..=24u64 {
+            let fs = 12_000.0;
+            let n = 300 + 97 * seed as usize;
+            let z = noisy_tone(fs, n, seed);
+            let tr = trace(&z, fs, 40.0, n as f64 - 41.0);
+            let c = chirp(&tr);
+            models[c.model as usize] += 1;
+            same(c, chirp_reference(&tr), &format!("seed {seed}"));
+            let mut flat = tr.clone();
+            flat.w.iter_mut().for_each(|w| *w = 1.0);
+            same(chirp(&flat), chirp_reference(&flat), "flat");
+            let mut holes = tr.clone();
+            for w in holes.w.iter_mut().step_by(3) {
+                *w = 0.0;
+            }
+            same(chirp(&holes), chirp_reference(&holes), "holes");
+            let mut mixed = tr.clone();
+            let k = mixed.t.len();
+            mixed.t.swap(k / 3, k - 5);
+            mixed.t.swap(1, k - 2);
+            same(chirp(&mixed), chirp_reference(&mixed), "mixed");
+        }
+        // Synthetic traces of each model's shape, with a little noise.
+        for (shape, seed) in (0..4).flat_map(|s| (0..6u64).map(move |k| (s, k))) {
+            let mut st = seed + 99;
+            let mut rnd = move || {
+                st = st
+                    .wrapping_mul(6_364_136_223_846_793_005)
+                    .wrapping_add(1_442_695_040_888_963_407);
+                (st >> 11) as f64 / (1u64 << 53) as f64 - 0.5
+            };
+            let k = 200 + 50 * seed as usize;
+            let t: Vec<f64> = (0..k).map(|i| i as f64 * TRACE_STEP_S).collect();
+            let f = t
+                .iter()
+                .map(|&x| {
+                    let lin = if shape % 2 == 1 { 300.0 * x } else { 0.0 };
+                    let ex = if shape >= 2 {
+                        15.0 * (-x / 0.004).exp()
+                    } else {
+                        0.0
+                    };
+                    3.0 + lin + ex + 0.5 * rnd()
+                })
+                .collect();
+            let w = (0..k).map(|i| 1.0 + (i as f64 / 7.0).sin().abs()).collect();
+            let tr = Trace { t, f, w };
+            let c = chirp(&tr);
+            models[c.model as usize] += 1;
+            same(
+                c,
+                chirp_reference(&tr),
+                &format!("shape {shape} seed {seed}"),
+            );
+        }
+        let clean = trace(&tone(12_000.0, 2400, |_| 5.0), 12_000.0, 40.0, 2300.0);
+        same(chirp(&clean), chirp_reference(&clean), "clean");
+        for short in 0..6 {
+            let tr = Trace {
+                t: (0..short).map(|i| i as f64 * 0.001).collect(),
+                f: (0..short).map(|i| (i * i) as f64).collect(),
+                w: vec![1.0; short],
+            };
+            same(chirp(&tr), chirp_reference(&tr), "short");
+        }
+        assert!(models.iter().all(|&c| c > 0), "{models:?}");
     }
 
     #[test]

@@ -62,25 +62,34 @@ pub fn median(v: &[f64]) -> f64 {
 /// so a total landing within rounding of the half-way point may pick the
 /// neighbouring value; otherwise the two agree exactly.
 pub fn weighted_median(values: &[f64], weights: &[f64]) -> f64 {
-    let mut p = usable_pairs(values, weights);
+    // Each value as its `total_cmp` key, so every comparison below is one
+    // integer comparison; the same decisions, swaps and sums as comparing
+    // the values by `total_cmp` (`weighted_median_total_cmp`, the test
+    // oracle), so the same result bit for bit.
+    let mut p: Vec<(i64, f64)> = values
+        .iter()
+        .zip(weights)
+        .filter(|(v, w)| v.is_finite() && **w > 0.0)
+        .map(|(v, w)| (order_key(*v), *w))
+        .collect();
     if p.is_empty() {
         return f64::NAN;
     }
     let half = p.iter().map(|x| x.1).sum::<f64>() / 2.0;
     let mut below = 0.0;
-    let mut part: &mut [(f64, f64)] = &mut p;
+    let mut part: &mut [(i64, f64)] = &mut p;
     loop {
         let n = part.len();
         if n == 1 {
-            return part[0].0;
+            return from_order_key(part[0].0);
         }
         let mut three = [part[0].0, part[n / 2].0, part[n - 1].0];
-        three.sort_by(|a, b| a.total_cmp(b));
+        three.sort_unstable();
         let pivot = three[1];
         // Dutch national flag: [0, lt) below, [lt, gt) equal, [gt, n) above.
         let (mut lt, mut i, mut gt) = (0, 0, n);
         while i < gt {
-            match part[i].0.total_cmp(&pivot) {
+            match part[i].0.cmp(&pivot) {
                 Ordering::Less => {
                     part.swap(lt, i);
                     lt += 1;
@@ -100,14 +109,26 @@ pub fn weighted_median(values: &[f64], weights: &[f64]) -> f64 {
         }
         let w_eq: f64 = part[lt..gt].iter().map(|x| x.1).sum();
         if below + w_lt + w_eq >= half || gt == n {
-            return pivot;
+            return from_order_key(pivot);
         }
         below += w_lt + w_eq;
         part = &mut part[gt..];
     }
 }
 
+/// The integer whose order is `f64::total_cmp`'s (the same bit flip).
+fn order_key(x: f64) -> i64 {
+    let b = x.to_bits() as i64;
+    b ^ (((b >> 63) as u64) >> 1) as i64
+}
+
+/// Inverse of `order_key` (the flip leaves the sign bit, so it undoes itself).
+fn from_order_key(k: i64) -> f64 {
+    f64::from_bits((k ^ (((k >> 63) as u64) >> 1) as i64) as u64)
+}
+
 /// (value, weight) pairs with a finite value and a positive weight.
+#[cfg(test)]
 fn usable_pairs(values: &[f64], weights: &[f64]) -> Vec<(f64, f64)> {
     values
         .iter()
@@ -169,6 +190,54 @@ mod tests {
         p[p.len() - 1].0
     }
 
+    /// The weighted quickselect comparing values by `total_cmp`: the code
+    /// `weighted_median` was derived from; test oracle.
+    fn weighted_median_total_cmp(values: &[f64], weights: &[f64]) -> f64 {
+        let mut p = usable_pairs(values, weights);
+        if p.is_empty() {
+            return f64::NAN;
+        }
+        let half = p.iter().map(|x| x.1).sum::<f64>() / 2.0;
+        let mut below = 0.0;
+        let mut part: &mut [(f64, f64)] = &mut p;
+        loop {
+            let n = part.len();
+            if n == 1 {
+                return part[0].0;
+            }
+            let mut three = [part[0].0, part[n / 2].0, part[n - 1].0];
+            three.sort_by(|a, b| a.total_cmp(b));
+            let pivot = three[1];
+            // Dutch national flag: [0, lt) below, [lt, gt) equal, [gt, n) above.
+            let (mut lt, mut i, mut gt) = (0, 0, n);
+            while i < gt {
+                match part[i].0.total_cmp(&pivot) {
+                    Ordering::Less => {
+                        part.swap(lt, i);
+                        lt += 1;
+                        i += 1;
+                    }
+                    Ordering::Greater => {
+                        gt -= 1;
+                        part.swap(i, gt);
+                    }
+                    Ordering::Equal => i += 1,
+                }
+            }
+            let w_lt: f64 = part[..lt].iter().map(|x| x.1).sum();
+            if below + w_lt >= half {
+                part = &mut part[..lt];
+                continue;
+            }
+            let w_eq: f64 = part[lt..gt].iter().map(|x| x.1).sum();
+            if below + w_lt + w_eq >= half || gt == n {
+                return pivot;
+            }
+            below += w_lt + w_eq;
+            part = &mut part[gt..];
+        }
+    }
+
     #[test]
     fn selection_medians_equal_the_sorted_definitions() {
         // Slow obvious oracle: sort, then accumulate. Lengths 1..300, odd and
@@ -208,6 +277,11 @@ mod tests {
                 assert!(
                     a.to_bits() == b.to_bits() || (a.is_nan() && b.is_nan()),
                     "{len}: {a} {b}"
+                );
+                let c = weighted_median_total_cmp(&v, &w);
+                assert!(
+                    a.to_bits() == c.to_bits() || (a.is_nan() && c.is_nan()),
+                    "{len}: {a} {c}"
                 );
             }
         }
