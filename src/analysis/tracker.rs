@@ -6,8 +6,6 @@
 //! the signal that follows, which lets the first elements of a file be
 //! measured with levels from more than themselves.
 
-use std::cmp::Ordering;
-
 use rustfft::num_complex::{Complex32, Complex64};
 
 use super::element::{measure, Context, Measured};
@@ -512,6 +510,40 @@ fn magnitudes_avx(re: &[f64], im: &[f64], w: f64, out: &mut Vec<f64>) {
     magnitudes_into(re, im, w, out);
 }
 
+/// Number of leading values of `xs` that `keep` holds for. The segmenter's
+/// runs are long (a key-down or a gap is hundreds of envelope samples), so
+/// whole blocks are tested first with a predicate that does not branch per
+/// value (it vectorizes), and only the block holding the end one by one.
+/// `keep` is a comparison written so NaN keeps the run going, as the
+/// `partial_cmp` tests it replaces did (`leading_reference`).
+#[inline(always)]
+fn leading(xs: &[f32], keep: impl Fn(f32) -> bool) -> usize {
+    const W: usize = 16;
+    let mut n = 0;
+    for block in xs.chunks_exact(W) {
+        if !block.iter().fold(true, |all, &v| all & keep(v)) {
+            break;
+        }
+        n += W;
+    }
+    n + xs[n..].iter().take_while(|&&v| keep(v)).count()
+}
+
+/// `v` is not below `t`: at or above it, or NaN (a NaN continues an on run).
+/// One negated comparison says that, and vectorizes as one compare.
+#[allow(clippy::neg_cmp_op_on_partial_ord)]
+#[inline(always)]
+fn not_below(v: f32, t: f64) -> bool {
+    !((v as f64) < t)
+}
+
+/// `v` is not at or above `t`: below it, or NaN (a NaN continues a gap).
+#[allow(clippy::neg_cmp_op_on_partial_ord)]
+#[inline(always)]
+fn not_at_or_above(v: f32, t: f64) -> bool {
+    !((v as f64) >= t)
+}
+
 /// Streaming tracker of one tone in one channel.
 pub struct ToneTracker {
     dc: Downconverter,
@@ -893,20 +925,14 @@ impl ToneTracker {
                     let start = self.seg.open_start().unwrap_or(q);
                     let lim = ((start + self.max_el + 1).saturating_sub(self.detphys) as usize)
                         .clamp(from, to);
-                    let n = self.det[from..lim]
-                        .iter()
-                        .take_while(|&&v| (v as f64).partial_cmp(&off) != Some(Ordering::Less))
-                        .count();
+                    let n = leading(&self.det[from..lim], |v| not_below(v, off));
                     if n > 0 {
                         self.gap.clear();
                         self.seg_q += n as u64;
                         continue;
                     }
                 } else if self.seg.is_idle() {
-                    let n = self.det[from..to]
-                        .iter()
-                        .take_while(|&&v| (v as f64).partial_cmp(&on).is_none_or(Ordering::is_lt))
-                        .count();
+                    let n = leading(&self.det[from..to], |v| not_at_or_above(v, on));
                     if n > 0 {
                         self.cut_open = false;
                         // Key-up samples past the last fall's guard go to the noise.
@@ -1259,5 +1285,74 @@ mod gap_tests {
         assert_eq!(fast.sum_dev, slow.sum_dev);
         assert_eq!(fast.coherent, slow.coherent);
         assert_eq!(fast.block, slow.block);
+    }
+
+    /// The segmenter's run scans as first written (test oracle).
+    fn leading_reference(xs: &[f32], on: f64, off: f64) -> (usize, usize) {
+        use std::cmp::Ordering;
+        let high = xs
+            .iter()
+            .take_while(|&&v| (v as f64).partial_cmp(&off) != Some(Ordering::Less))
+            .count();
+        let low = xs
+            .iter()
+            .take_while(|&&v| (v as f64).partial_cmp(&on).is_none_or(Ordering::is_lt))
+            .count();
+        (high, low)
+    }
+
+    #[test]
+    fn run_scans_equal_the_take_while_scans() {
+        // Runs of every length from 0 to 70 (across the 16-value blocks)
+        // ended by a value below `off` or at or above `on`, runs that fill
+        // the slice, NaN inside a run (it continues a run, as before), and
+        // values on the thresholds and one f32 ulp either side of them.
+        let (on, off) = (0.65f64, 0.35f64);
+        let near = |t: f64, k: i32| {
+            let b = (t as f32).to_bits() as i64 + k as i64;
+            f32::from_bits(b as u32)
+        };
+        let specials = [
+            f32::NAN,
+            near(on, -1),
+            near(on, 0),
+            near(on, 1),
+            near(off, -1),
+            near(off, 0),
+            near(off, 1),
+            0.0,
+            1.0,
+            f32::INFINITY,
+            f32::NEG_INFINITY,
+        ];
+        let mut checked = 0;
+        for len in 0..70usize {
+            for &fill in &[0.5f32, 0.9, 0.1, f32::NAN] {
+                for &end in &specials {
+                    let mut xs = vec![fill; len];
+                    if len > 3 {
+                        xs[len / 3] = f32::NAN;
+                    }
+                    xs.push(end);
+                    xs.extend([0.5, 0.9, 0.1]);
+                    for cut in [len, len + 1, xs.len()] {
+                        let x = &xs[..cut];
+                        let (high, low) = leading_reference(x, on, off);
+                        assert_eq!(
+                            leading(x, |v| not_below(v, off)),
+                            high,
+                            "{len} {fill} {end}"
+                        );
+                        assert_eq!(
+                            leading(x, |v| not_at_or_above(v, on)),
+                            low,
+                            "{len} {fill} {end}"
+                        );
+                        checked += (high > 16) as usize + (low > 16) as usize;
+                    }
+                }
+            }
+        }
+        assert!(checked > 1000, "{checked}");
     }
 }

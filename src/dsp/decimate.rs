@@ -196,6 +196,56 @@ unsafe fn halfband_avx2(c: &[f32], even: &[f32], odd: &[f32], out: &mut Vec<f32>
     let n = even.len();
     assert!(n.is_multiple_of(LANES) && odd.len() + 1 >= n + c.len());
     out.reserve(n);
+    let len0 = out.len();
+    // SAFETY: `reserve(n)` leaves room for n values from len0 on; the loop
+    // stores every one of them (j runs to n by whole vectors) before the
+    // length is set, so no uninitialised value becomes part of `out`.
+    // Writing there directly saves a copy through a local array per group.
+    let dp = out.as_mut_ptr().add(len0);
+    let half = _mm256_set1_ps(0.5);
+    let (ep, op) = (even.as_ptr(), odd.as_ptr());
+    let mut j = 0;
+    while j < n {
+        if n - j >= 4 * LANES {
+            let mut a0 = _mm256_mul_ps(half, _mm256_loadu_ps(ep.add(j)));
+            let mut a1 = _mm256_mul_ps(half, _mm256_loadu_ps(ep.add(j + 8)));
+            let mut a2 = _mm256_mul_ps(half, _mm256_loadu_ps(ep.add(j + 16)));
+            let mut a3 = _mm256_mul_ps(half, _mm256_loadu_ps(ep.add(j + 24)));
+            for (t, &ct) in c.iter().enumerate() {
+                let cv = _mm256_set1_ps(ct);
+                let p = op.add(j + t);
+                a0 = _mm256_fmadd_ps(cv, _mm256_loadu_ps(p), a0);
+                a1 = _mm256_fmadd_ps(cv, _mm256_loadu_ps(p.add(8)), a1);
+                a2 = _mm256_fmadd_ps(cv, _mm256_loadu_ps(p.add(16)), a2);
+                a3 = _mm256_fmadd_ps(cv, _mm256_loadu_ps(p.add(24)), a3);
+            }
+            _mm256_storeu_ps(dp.add(j), a0);
+            _mm256_storeu_ps(dp.add(j + 8), a1);
+            _mm256_storeu_ps(dp.add(j + 16), a2);
+            _mm256_storeu_ps(dp.add(j + 24), a3);
+            j += 4 * LANES;
+        } else {
+            let mut a0 = _mm256_mul_ps(half, _mm256_loadu_ps(ep.add(j)));
+            for (t, &ct) in c.iter().enumerate() {
+                a0 = _mm256_fmadd_ps(_mm256_set1_ps(ct), _mm256_loadu_ps(op.add(j + t)), a0);
+            }
+            _mm256_storeu_ps(dp.add(j), a0);
+            j += LANES;
+        }
+    }
+    // j == n (a multiple of LANES): outputs len0 .. len0 + n are written.
+    out.set_len(len0 + n);
+}
+
+/// `halfband_avx2` as first written, each group of outputs stored to a
+/// local array and appended from there (test oracle).
+#[cfg(all(test, target_arch = "x86_64"))]
+#[target_feature(enable = "avx2,fma")]
+unsafe fn halfband_avx2_reference(c: &[f32], even: &[f32], odd: &[f32], out: &mut Vec<f32>) {
+    use std::arch::x86_64::*;
+    let n = even.len();
+    assert!(n.is_multiple_of(LANES) && odd.len() + 1 >= n + c.len());
+    out.reserve(n);
     let half = _mm256_set1_ps(0.5);
     let (ep, op) = (even.as_ptr(), odd.as_ptr());
     let mut lanes = [0f32; 4 * LANES];
@@ -470,6 +520,34 @@ mod tests {
         assert_eq!(b.len(), 2000);
         for (u, v) in a.iter().zip(&b) {
             assert!((u - v).abs() < 1e-6, "{u} {v}");
+        }
+    }
+
+    #[test]
+    #[cfg(target_arch = "x86_64")]
+    fn vector_kernel_equals_its_first_form_bit_for_bit() {
+        // Oracle: `halfband_avx2_reference`, which stored each group to a
+        // local array and appended it; the same sums, so the same bits.
+        // Lengths with and without a tail of single vectors, appended to a
+        // non-empty `out` (the kernel writes after what is there).
+        if !(std::arch::is_x86_feature_detected!("avx2")
+            && std::arch::is_x86_feature_detected!("fma"))
+        {
+            return;
+        }
+        let st = Stage::new(0.1);
+        let odd: Vec<f32> = (0..3000).map(|i| ((i as f32) * 0.913).sin()).collect();
+        let even: Vec<f32> = (0..2000).map(|i| ((i as f32) * 0.37).cos()).collect();
+        for n in [0, 8, 16, 24, 32, 40, 64, 72, 1000, 2000] {
+            let (mut a, mut b) = (vec![7.0f32; 3], vec![7.0f32; 3]);
+            // SAFETY: the CPU has AVX2 and FMA (checked above).
+            unsafe {
+                halfband_avx2(&st.c, &even[..n], &odd, &mut a);
+                halfband_avx2_reference(&st.c, &even[..n], &odd, &mut b);
+            }
+            assert_eq!(a.len(), n + 3);
+            let bits = |v: &[f32]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+            assert_eq!(bits(&a), bits(&b), "n {n}");
         }
     }
 

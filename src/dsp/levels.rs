@@ -31,6 +31,10 @@ fn bin_count() -> usize {
     ((MAX_DB - MIN_DB) / BIN_DB) as usize
 }
 
+/// Bins a mode's peak search reads: the +-0.5 dB window and +-0.1 dB
+/// either side.
+const PEAK_SPAN: usize = 2 * 10 + 1 + 2 * 2;
+
 /// At least the number of blocks (checked in `LevelHistogram::new`).
 const MAX_BLOCKS: usize = 160;
 
@@ -126,11 +130,14 @@ impl BinTable {
     /// keeps them at hand instead of reloading them after every store.
     #[inline]
     fn view(&self) -> BinView<'_> {
+        debug_assert_eq!(self.cells.len() as u64, self.key_hi - self.key_lo);
         BinView {
             cells: &self.cells,
             edges: &self.edges,
             key_lo: self.key_lo,
-            span: self.key_hi - self.key_lo,
+            // key_hi - key_lo by construction; as the slice's length, the
+            // range test also proves the cell index in bounds.
+            span: self.cells.len() as u64,
             top: self.n - 1,
         }
     }
@@ -148,8 +155,9 @@ struct BinView<'a> {
 impl BinView<'_> {
     /// An amplitude whose key is one of the cells' is positive and finite
     /// (a negative amplitude's or a NaN's key lies above them, zero's below),
-    /// so that case takes one range test; the rest go to `outside`.
-    #[inline]
+    /// so that case takes one range test; the rest go to `outside`. (The
+    /// histogram takes `bin_weight`; tests check both.)
+    #[cfg(test)]
     fn bin(&self, amplitude: f64) -> usize {
         let d = (amplitude.to_bits() >> CELL_SHIFT).wrapping_sub(self.key_lo);
         if d < self.span {
@@ -157,6 +165,20 @@ impl BinView<'_> {
             i + (amplitude >= self.edges[i + 1]) as usize
         } else {
             self.outside(amplitude)
+        }
+    }
+
+    /// `bin`, and the amplitude the bin's sum takes, `amplitude.max(0.0)`:
+    /// an amplitude found in the cells is positive and finite, so there it
+    /// is the amplitude itself.
+    #[inline]
+    fn bin_weight(&self, amplitude: f64) -> (usize, f64) {
+        let d = (amplitude.to_bits() >> CELL_SHIFT).wrapping_sub(self.key_lo);
+        if d < self.span {
+            let i = self.cells[d as usize] as usize;
+            (i + (amplitude >= self.edges[i + 1]) as usize, amplitude)
+        } else {
+            (self.outside(amplitude), amplitude.max(0.0))
         }
     }
 
@@ -205,6 +227,10 @@ impl LevelHistogram {
     pub fn new() -> LevelHistogram {
         let n = bin_count();
         assert!(n.div_ceil(BLOCK) <= MAX_BLOCKS);
+        assert_eq!(
+            PEAK_SPAN,
+            2 * (0.5 / BIN_DB) as usize + 1 + 2 * (0.1 / BIN_DB) as usize
+        );
         LevelHistogram {
             counts: vec![0; n],
             sums: vec![0.0; n],
@@ -239,11 +265,13 @@ impl LevelHistogram {
         }
         let (mut lo, mut hi) = (usize::MAX, 0);
         let table = self.table.view();
-        let (counts, sums) = (&mut self.counts[..], &mut self.sums[..]);
+        // One length for both, so one bounds test covers both.
+        let n = self.counts.len().min(self.sums.len());
+        let (counts, sums) = (&mut self.counts[..n], &mut self.sums[..n]);
         for &a in amplitudes {
-            let i = table.bin(a);
+            let (i, w) = table.bin_weight(a);
             counts[i] += 1;
-            sums[i] += a.max(0.0);
+            sums[i] += w;
             lo = lo.min(i);
             hi = hi.max(i);
         }
@@ -326,14 +354,23 @@ impl LevelHistogram {
         // makes, would otherwise drag the wide window off the plateau).
         let near = (0.1 / BIN_DB) as usize;
         let win = |c: usize| (c.saturating_sub(near).max(lo), (c + near + 1).min(hi));
+        // Every narrow window of the wide one's bins lies in base..top:
+        // their sums as differences of cumulative counts (exact integers).
+        let (c0, c1) = (w_lo(best.1), w_hi(best.1));
+        let (base, top) = (win(c0).0, win(c1 - 1).1);
+        let mut cum = [0u64; PEAK_SPAN + 1];
+        for (k, &c) in self.counts[base..top].iter().enumerate() {
+            cum[k + 1] = cum[k] + c;
+        }
         let win_sum = |c: usize| -> u64 {
             let (a, b) = win(c);
-            self.counts[a..b].iter().sum()
+            cum[b - base] - cum[a - base]
         };
-        let mut peak = best.1;
-        for c in w_lo(best.1)..w_hi(best.1) {
-            if win_sum(c) > win_sum(peak) {
-                peak = c;
+        let (mut peak, mut peak_sum) = (best.1, win_sum(best.1));
+        for c in c0..c1 {
+            let s = win_sum(c);
+            if s > peak_sum {
+                (peak, peak_sum) = (c, s);
             }
         }
         let (a, b) = win(peak);
@@ -535,7 +572,15 @@ mod tests {
         // cell's first and last value, and random amplitudes over 300 dB.
         let t = bin_table();
         let n = t.n;
-        let check = |a: f64| assert_eq!(t.view().bin(a), bin_by_log(a, n), "amplitude {a:e}");
+        let check = |a: f64| {
+            assert_eq!(t.view().bin(a), bin_by_log(a, n), "amplitude {a:e}");
+            let (i, w) = t.view().bin_weight(a);
+            assert_eq!(
+                (i, w.to_bits()),
+                (bin_by_log(a, n), a.max(0.0).to_bits()),
+                "amplitude {a:e}"
+            );
+        };
         for &e in &t.edges[1..n] {
             let b = e.to_bits();
             for k in b - 40..=b + 40 {
@@ -645,6 +690,94 @@ mod tests {
                 }
             }
         }
+    }
+
+    /// `mode_level` as first written: each narrow window summed afresh,
+    /// the peak's again at every comparison (test oracle).
+    fn mode_level_reference(h: &LevelHistogram, lo: usize, hi: usize) -> Option<f64> {
+        if hi <= lo {
+            return None;
+        }
+        let best = h.mode_best(lo, hi);
+        if best.0 == 0 {
+            return None;
+        }
+        let half = (0.5 / BIN_DB) as usize;
+        let w_lo = |i: usize| i.saturating_sub(half).max(lo);
+        let w_hi = |i: usize| (i + half + 1).min(hi);
+        let near = (0.1 / BIN_DB) as usize;
+        let win = |c: usize| (c.saturating_sub(near).max(lo), (c + near + 1).min(hi));
+        let win_sum = |c: usize| -> u64 {
+            let (a, b) = win(c);
+            h.counts[a..b].iter().sum()
+        };
+        let mut peak = best.1;
+        for c in w_lo(best.1)..w_hi(best.1) {
+            if win_sum(c) > win_sum(peak) {
+                peak = c;
+            }
+        }
+        let (a, b) = win(peak);
+        let n: u64 = h.counts[a..b].iter().sum();
+        let s: f64 = h.sums[a..b].iter().sum();
+        Some(if n > 0 {
+            s / n as f64
+        } else {
+            LevelHistogram::bin_amp(best.1)
+        })
+    }
+
+    #[test]
+    fn mode_level_equals_the_reference() {
+        // Same integer window sums and the same final sums, so the same
+        // level to the bit: two-state mixtures, plateaus one bin wide, and
+        // ranges whose ends cut the +-0.5 dB window (lo and hi near the mode).
+        let mut seed = 13u64;
+        let mut checked = 0;
+        for trial in 0..25 {
+            let mut h = LevelHistogram::new();
+            let low = 2e-4 * (1.0 + trial as f64);
+            h.add_slice(&amplitudes(&mut seed, 2000 + 300 * trial, low, 0.6));
+            let width = [0.0, 0.001, 0.02, 0.1][trial % 4];
+            h.add_slice(&amplitudes(&mut seed, 1500, 0.25, width));
+            h.add_slice(&amplitudes(&mut seed, 50 * (trial % 5), 0.25, 3.0));
+            let n = h.counts.len();
+            let (f, l) = (h.first.min(n - 1), h.last);
+            let mut ends = vec![0, f, f + 5, (f + l) / 2, l, l + 1, n];
+            let hb = h.mode_best(0, n).1;
+            ends.extend([
+                hb.saturating_sub(11),
+                hb.saturating_sub(3),
+                hb,
+                hb + 1,
+                hb + 4,
+                hb + 12,
+            ]);
+            for &lo in &ends {
+                for &hi in &ends {
+                    if hi > n {
+                        continue;
+                    }
+                    let (fast, slow) = (h.mode_level(lo, hi), mode_level_reference(&h, lo, hi));
+                    assert_eq!(
+                        fast.map(f64::to_bits),
+                        slow.map(f64::to_bits),
+                        "trial {trial} {lo}..{hi}"
+                    );
+                    checked += fast.is_some() as usize;
+                }
+            }
+            // The high level is the mean of the samples within +-0.1 dB of
+            // the mode's bin (0.05 dB wide) on the plateau, which spans
+            // 0.25 * 10^-width ..= 0.25; none lie above 0.25.
+            let l = h.levels().unwrap();
+            let floor = 0.25 * 10f64.powf(-width - 0.15 / 20.0);
+            assert!(
+                l.high <= 0.25 * (1.0 + 1e-12) && l.high >= floor * (1.0 - 1e-12),
+                "{trial}: {l:?}"
+            );
+        }
+        assert!(checked > 500, "{checked}");
     }
 
     #[test]
