@@ -308,13 +308,8 @@ impl Measure {
                     .extend(block.iter().skip(self.channel).step_by(nch));
                 &self.mono
             };
-            match (self.shared, front) {
-                (Some(f), Some(d)) => {
-                    let piece = &d[d.len() * k / pieces..d.len() * (k + 1) / pieces];
-                    self.set.push_shared(x, (f, piece));
-                }
-                _ => self.set.push(x),
-            }
+            let piece = front.map(|d| &d[d.len() * k / pieces..d.len() * (k + 1) / pieces]);
+            self.set.push(x, self.shared.zip(piece));
             self.rider.push(x, &self.set, false);
         }
     }
@@ -322,10 +317,7 @@ impl Measure {
     /// Ends the input; `tail` is the survey's front-end flush of the
     /// channel (used when the measurement is `shared`).
     fn finish(mut self, tail: &[f32]) -> (tones::ToneSet, SpectralRider) {
-        match self.shared {
-            Some(f) => self.set.finish_shared((f, tail)),
-            None => self.set.finish(),
-        }
+        self.set.finish(self.shared.map(|f| (f, tail)));
         self.rider.push(&[], &self.set, true);
         (self.set, self.rider)
     }

@@ -217,29 +217,17 @@ impl ToneSet {
     }
 
     /// Feeds one block of the analysed channel to every tracker.
-    pub fn push(&mut self, mono: &[f32]) {
-        if self.trackers.len() == 1 {
-            self.trackers[0].push(mono);
-        } else {
-            self.trackers.par_iter_mut().for_each(|t| t.push(mono));
-        }
-    }
-
-    pub fn finish(&mut self) {
-        self.trackers.par_iter_mut().for_each(|t| t.finish());
-    }
-
-    /// `push` with the block also through a front end of `front.0`
-    /// (`front.1`, see `ToneTracker::push_decimated`): the trackers whose
-    /// downconverter decimates by that factor take it instead of
-    /// decimating the block again.
-    pub fn push_shared(&mut self, mono: &[f32], front: (usize, &[f32])) {
-        let one = |t: &mut ToneTracker| {
-            if t.downconverter().decimation_front() == front.0 {
-                t.push_decimated(mono.len(), front.1);
-            } else {
-                t.push(mono);
+    ///
+    /// `front`: the block also through a front end decimating by `front.0`
+    /// (its output `front.1`, see `ToneTracker::push_decimated`); the
+    /// trackers whose downconverter decimates by that factor take it instead
+    /// of decimating the block again.
+    pub fn push(&mut self, mono: &[f32], front: Option<(usize, &[f32])>) {
+        let one = |t: &mut ToneTracker| match front {
+            Some((f, d)) if t.downconverter().decimation_front() == f => {
+                t.push_decimated(mono.len(), d)
             }
+            _ => t.push(mono),
         };
         if self.trackers.len() == 1 {
             one(&mut self.trackers[0]);
@@ -248,15 +236,12 @@ impl ToneSet {
         }
     }
 
-    /// `finish` after [`push_shared`](Self::push_shared): `tail` is the
-    /// shared front end's flush output.
-    pub fn finish_shared(&mut self, front: (usize, &[f32])) {
-        self.trackers.par_iter_mut().for_each(|t| {
-            if t.downconverter().decimation_front() == front.0 {
-                t.finish_decimated(front.1);
-            } else {
-                t.finish();
-            }
+    /// Ends the input; `front`: the shared front end's factor and flush
+    /// output when [`push`](Self::push) had one.
+    pub fn finish(&mut self, front: Option<(usize, &[f32])>) {
+        self.trackers.par_iter_mut().for_each(|t| match front {
+            Some((f, d)) if t.downconverter().decimation_front() == f => t.finish_decimated(d),
+            _ => t.finish(),
         });
     }
 

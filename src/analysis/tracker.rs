@@ -738,44 +738,46 @@ impl ToneTracker {
     /// Feeds one channel's samples. The baseband goes straight onto the
     /// end of the buffer.
     pub fn push(&mut self, samples: &[f32]) {
-        self.input_samples += samples.len() as u64;
-        self.compact();
-        let from = self.zbuf.len();
-        self.dc.push(samples, &mut self.zbuf);
-        self.ingest(from, false);
+        self.take(samples.len(), false, |dc, z| dc.push(samples, z));
     }
 
     /// `push` for input already through a front end like the
     /// downconverter's (see `Downconverter::push_decimated`): `input_len`
     /// samples of the channel, `front` their decimation.
     pub fn push_decimated(&mut self, input_len: usize, front: &[f32]) {
-        self.input_samples += input_len as u64;
-        self.compact();
-        let from = self.zbuf.len();
-        self.dc.push_decimated(front, &mut self.zbuf);
-        self.ingest(from, false);
+        self.take(input_len, false, |dc, z| dc.push_decimated(front, z));
     }
 
     /// Ends the stream: flushes the filter and measures what is left.
     pub fn finish(&mut self) {
-        self.compact();
-        let from = self.zbuf.len();
-        self.dc.flush(&mut self.zbuf);
-        self.finish_from(from);
+        self.take(0, true, |dc, z| dc.flush(z));
+        self.mark_cut();
     }
 
     /// `finish` for a tracker fed by [`push_decimated`](Self::push_decimated):
     /// `tail` is what the caller's decimator gave at its flush.
     pub fn finish_decimated(&mut self, tail: &[f32]) {
-        self.compact();
-        let from = self.zbuf.len();
-        self.dc.flush_decimated(tail, &mut self.zbuf);
-        self.finish_from(from);
+        self.take(0, true, |dc, z| dc.flush_decimated(tail, z));
+        self.mark_cut();
     }
 
-    /// The end of the stream once the filter is flushed into `zbuf[from..]`.
-    fn finish_from(&mut self, from: usize) {
-        self.ingest(from, true);
+    /// `input_len` more input samples, whose baseband `fill` puts onto the
+    /// end of the buffer; `last` when it flushed the filter.
+    fn take(
+        &mut self,
+        input_len: usize,
+        last: bool,
+        fill: impl FnOnce(&mut Downconverter, &mut Vec<Complex32>),
+    ) {
+        self.input_samples += input_len as u64;
+        self.compact();
+        let from = self.zbuf.len();
+        fill(&mut self.dc, &mut self.zbuf);
+        self.ingest(from, last);
+    }
+
+    /// Marks the elements the recording's start or end cut.
+    fn mark_cut(&mut self) {
         // An element whose 50 % instant falls at the very start or end of
         // the recording was cut by it (an abrupt start or end reads as an
         // edge right there).

@@ -442,13 +442,9 @@ impl Downconverter {
     /// output is the same as any other decimator's of the same input), then
     /// silence follows through the transforms.
     pub fn flush(&mut self, out: &mut Vec<Complex32>) {
-        let mut front_out = std::mem::take(&mut self.front_out);
-        front_out.clear();
-        self.front.flush(&mut front_out);
-        self.push_front(&front_out, out);
-        let z = vec![0.0f32; self.hop + self.m];
-        self.push_front(&z, out);
-        self.front_out = front_out;
+        let mut tail = Vec::new();
+        self.front.flush(&mut tail);
+        self.flush_decimated(&tail, out);
     }
 
     /// `push` for a caller that decimates the input itself: `front` is the
@@ -465,9 +461,7 @@ impl Downconverter {
     /// `flush` for a downconverter fed by [`push_decimated`](Self::push_decimated):
     /// `tail` is what the caller's decimator gave at its `flush`.
     pub fn flush_decimated(&mut self, tail: &[f32], out: &mut Vec<Complex32>) {
-        self.front_out.clear();
-        self.front_out.extend_from_slice(tail);
-        self.push_front(tail, out);
+        self.push_decimated(tail, out);
         let z = vec![0.0f32; self.hop + self.m];
         self.push_front(&z, out);
     }

@@ -332,9 +332,7 @@ impl Survey {
     /// spectrograms; the survey goes on. Lets a caller choose a tone early
     /// and check the choice against [`finish`](Self::finish).
     pub fn snapshot(&self) -> SurveyResult {
-        let mut r = self.found();
-        r.spectrograms = Vec::new();
-        r
+        self.found()
     }
 
     /// Finds tone candidates in every channel, strongest first.
