@@ -3,10 +3,14 @@
 # references, on synthesized 48 kHz mono recordings (16-bit, 30 dB SNR,
 # 20 WPM "PARIS" text):
 #   (a) cwaudit analyze FILE --json
-#   (b) scripts/reference_numpy.py FILE   (numpy/scipy, same measurements)
+#   (b) scripts/reference_numpy.py FILE   (numpy/scipy, the same
+#       measurements as the report: timing, edges, chirp, level, SNR,
+#       spreads, drift, backwave, hum, spectra, key clicks)
+#   (b') scripts/reference_numpy.py --core FILE   (its steps 1-8 only:
+#       timing, edges, chirp, level, SNR; shown as a second, harder ratio)
 #   (c) sox FILE -n stat                  (one plain pass over the samples)
 # Timings are wall-clock, pinned to one core (taskset -c 0), alternating
-# a, b, c in each round, REPS rounds, median reported. Peak resident memory
+# a, b, b', c in each round, REPS rounds, median reported. Peak resident memory
 # of cwaudit comes from /usr/bin/time -v ("Maximum resident set size").
 # If `cwaudit analyze` accepts several files, multi-file scaling is timed
 # too (four files, all cores, against one file).
@@ -100,21 +104,23 @@ measure() {
 median() { sort -g | awk '{a[NR]=$1} END {print (NR%2 ? a[(NR+1)/2] : (a[NR/2]+a[NR/2+1])/2)}'; }
 maxof() { sort -g | tail -1; }
 
-declare -A med_cw med_np med_sx rss_cw rss_np nrep
+declare -A med_cw med_np med_nc med_sx rss_cw rss_np nrep
 for m in $minutes; do
     f="$(file_for "$m")"
     n="$reps"
     if ((m > 10)); then n="${REPS_LONG:-$reps}"; fi
     nrep[$m]=$n
-    for k in cw np sx; do : >"$work/$k.$m"; : >"$work/$k.rss.$m"; done
+    for k in cw np nc sx; do : >"$work/$k.$m"; : >"$work/$k.rss.$m"; done
     for r in $(seq 1 "$n"); do
         echo "$m min, round $r of $n" >&2
         measure "$work/cw.$m" "$work/cw.rss.$m" taskset -c 0 "$bin" analyze "$f" --json
         measure "$work/np.$m" "$work/np.rss.$m" taskset -c 0 "$py" "$ref" "$f"
+        measure "$work/nc.$m" "$work/nc.rss.$m" taskset -c 0 "$py" "$ref" --core "$f"
         measure "$work/sx.$m" "$work/sx.rss.$m" taskset -c 0 sox "$f" -n stat
     done
     med_cw[$m]=$(median <"$work/cw.$m")
     med_np[$m]=$(median <"$work/np.$m")
+    med_nc[$m]=$(median <"$work/nc.$m")
     med_sx[$m]=$(median <"$work/sx.$m")
     rss_cw[$m]=$(maxof <"$work/cw.rss.$m")
     rss_np[$m]=$(maxof <"$work/np.rss.$m")
@@ -129,12 +135,12 @@ f1="$(file_for "$m1")"
 echo
 echo "Recordings: 48 kHz mono 16-bit, 20 WPM, 30 dB SNR; one core (taskset -c 0); median of alternating rounds ($(for m in $minutes; do printf '%s min: %s; ' "$m" "${nrep[$m]}"; done)rounds); peak RSS: largest over the rounds (GNU time); $(nproc) cores, $(uname -m)."
 echo
-echo "| length | cwaudit s | numpy s | sox s | numpy/cwaudit | cwaudit/sox | cwaudit peak RSS MiB | numpy peak RSS MiB |"
-echo "|---|---|---|---|---|---|---|---|"
+echo "| length | cwaudit s | numpy s | numpy --core s | sox s | numpy/cwaudit | numpy --core/cwaudit | cwaudit/sox | cwaudit peak RSS MiB | numpy peak RSS MiB |"
+echo "|---|---|---|---|---|---|---|---|---|---|"
 for m in $minutes; do
-    awk -v m="$m" -v c="${med_cw[$m]}" -v n="${med_np[$m]}" -v s="${med_sx[$m]}" \
+    awk -v m="$m" -v c="${med_cw[$m]}" -v n="${med_np[$m]}" -v nc="${med_nc[$m]}" -v s="${med_sx[$m]}" \
         -v r="${rss_cw[$m]}" -v rn="${rss_np[$m]}" \
-        'BEGIN {printf "| %d min | %.2f | %.2f | %.2f | %.1f | %.2f | %.1f | %.0f |\n", m, c, n, s, n / c, c / s, r, rn}'
+        'BEGIN {printf "| %d min | %.2f | %.2f | %.2f | %.2f | %.1f | %.1f | %.2f | %.1f | %.0f |\n", m, c, n, nc, s, n / c, nc / c, c / s, r, rn}'
 done
 
 echo
@@ -154,6 +160,17 @@ rows = [
     ("chirp Hz (median; numpy: raw max of the 2 ms trace)", med(c["chirp_hz"]), n["chirp_hz_median"]),
     ("level dBFS", c["level_dbfs"], n["level_dbfs"]),
     ("SNR dB in 2.5 kHz", c["snr_db"], n["snr_db"]),
+    ("dah/dit ratio", c["dah_dit_ratio"], n.get("dah_dit_ratio")),
+    ("mark/space ratio", c["mark_space_ratio"], n.get("mark_space_ratio")),
+    ("drift Hz/min", c["drift_hz_per_min"], n.get("drift_hz_per_min")),
+    ("backwave floor dB", c["backwave_floor_db"], n.get("backwave_floor_db")),
+    ("hum AM floor %", (c["hum"] or {}).get("am_floor_percent"), (n.get("hum") or {}).get("am_floor_percent")),
+    ("hum FM floor Hz", (c["hum"] or {}).get("fm_floor_hz"), (n.get("hum") or {}).get("fm_floor_hz")),
+    ("occupied bandwidth Hz", c["occupied_bandwidth_hz"], n.get("occupied_bandwidth_hz")),
+    ("20 dB bandwidth Hz", (c["bandwidth_hz"] or {}).get("20"), (n.get("bandwidth_hz") or {}).get("20")),
+    ("30 dB bandwidth Hz", (c["bandwidth_hz"] or {}).get("30"), (n.get("bandwidth_hz") or {}).get("30")),
+    ("spectrum noise floor dBc", c["noise_floor_dbc"], n.get("noise_floor_dbc")),
+    ("key-up sideband power dB", (c["clicks"] or {}).get("noise_sideband_db"), (n.get("clicks") or {}).get("noise_sideband_db")),
 ]
 f = lambda v: "-" if v is None else (str(v) if isinstance(v, int) else f"{v:.3f}")
 print("| quantity | cwaudit | numpy |")
