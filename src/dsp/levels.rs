@@ -258,23 +258,35 @@ impl LevelHistogram {
     /// Adds many amplitudes (as `add` one by one). The block counts are
     /// summed afresh over the blocks the slice touched, after it: counted per
     /// sample they were a chain of increments of one memory cell (successive
-    /// amplitudes nearly always share a block).
+    /// amplitudes nearly always share a block). A run of amplitudes in one
+    /// bin is counted and summed in registers and stored when the bin
+    /// changes: per sample, the bin's count and sum were chains through
+    /// memory. The sum still takes the run's amplitudes one by one, in
+    /// order, so it is the same number to the last bit.
     pub fn add_slice(&mut self, amplitudes: &[f64]) {
-        if amplitudes.is_empty() {
+        let Some((&first, rest)) = amplitudes.split_first() else {
             return;
-        }
-        let (mut lo, mut hi) = (usize::MAX, 0);
+        };
         let table = self.table.view();
         // One length for both, so one bounds test covers both.
         let n = self.counts.len().min(self.sums.len());
         let (counts, sums) = (&mut self.counts[..n], &mut self.sums[..n]);
-        for &a in amplitudes {
+        let (mut cur, w) = table.bin_weight(first);
+        let (mut lo, mut hi) = (cur, cur);
+        let (mut count, mut sum) = (counts[cur] + 1, sums[cur] + w);
+        for &a in rest {
             let (i, w) = table.bin_weight(a);
-            counts[i] += 1;
-            sums[i] += w;
-            lo = lo.min(i);
-            hi = hi.max(i);
+            if i != cur {
+                (counts[cur], sums[cur]) = (count, sum);
+                (count, sum) = (counts[i], sums[i]);
+                cur = i;
+                lo = lo.min(i);
+                hi = hi.max(i);
+            }
+            count += 1;
+            sum += w;
         }
+        (counts[cur], sums[cur]) = (count, sum);
         for (b, block) in self.blocks[lo / BLOCK..=hi / BLOCK].iter_mut().enumerate() {
             let start = (lo / BLOCK + b) * BLOCK;
             let end = (start + BLOCK).min(counts.len());
