@@ -111,7 +111,7 @@ pub struct LiveView {
 /// Stream analysis state.
 enum State {
     Listening {
-        survey: Survey,
+        survey: Box<Survey>,
         held: Vec<f32>,
     },
     Tracking {
@@ -166,7 +166,7 @@ impl LiveAnalyzer {
             fs,
             channels: channels as usize,
             state: State::Listening {
-                survey: Survey::new(fs, channels as usize),
+                survey: Box::new(Survey::new(fs, channels as usize)),
                 held: Vec::new(),
             },
             frames: 0,
@@ -247,7 +247,7 @@ impl LiveAnalyzer {
         let State::Listening { survey, held } = std::mem::replace(
             &mut self.state,
             State::Listening {
-                survey: Survey::new(self.fs, self.channels),
+                survey: Box::new(Survey::new(self.fs, self.channels)),
                 held: Vec::new(),
             },
         ) else {

@@ -14,15 +14,14 @@
 
 use std::collections::BTreeMap;
 use std::path::Path;
-use std::sync::Arc;
 
-use realfft::{RealFftPlanner, RealToComplex};
 use rustfft::num_complex::Complex32;
 use serde::{Deserialize, Serialize};
 
 use super::views::{SpectrogramView, SpectrumView};
 use crate::dsp::decimate::{factor_for, Decimator, PASS_FRACTION};
 use crate::dsp::downconvert::plan_sizes;
+use crate::dsp::real_fft::RealFft;
 use crate::dsp::survey::{frames_per_column, SurveyGram};
 use crate::dsp::window::{enbw_bins, hann};
 use crate::error::Result;
@@ -98,22 +97,18 @@ pub struct SpectralInput<'a> {
 /// Welch accumulator for one frame length.
 struct Welch {
     win: Vec<f32>,
-    fft: Arc<dyn RealToComplex<f32>>,
-    buf: Vec<f32>,
+    fft: RealFft,
     spec: Vec<Complex32>,
-    scratch: Vec<Complex32>,
     sum: Vec<f64>,
     frames: u64,
 }
 
 impl Welch {
     fn new(n: usize) -> Welch {
-        let fft = RealFftPlanner::<f32>::new().plan_fft_forward(n);
+        let fft = RealFft::new(n);
         Welch {
             win: hann(n),
-            buf: fft.make_input_vec(),
             spec: fft.make_output_vec(),
-            scratch: fft.make_scratch_vec(),
             fft,
             sum: vec![0.0; n / 2 + 1],
             frames: 0,
@@ -121,23 +116,13 @@ impl Welch {
     }
     /// Power spectrum of `x` (length n) into `out`.
     fn power(&mut self, x: &[f32], out: &mut [f64]) {
-        for ((b, v), w) in self.buf.iter_mut().zip(x).zip(&self.win) {
-            *b = v * w;
-        }
-        self.fft
-            .process_with_scratch(&mut self.buf, &mut self.spec, &mut self.scratch)
-            .expect("sizes from the plan");
+        self.fft.process_windowed(x, &self.win, &mut self.spec);
         for (o, s) in out.iter_mut().zip(&self.spec) {
             *o = s.norm_sqr() as f64;
         }
     }
     fn add(&mut self, x: &[f32]) {
-        for ((b, v), w) in self.buf.iter_mut().zip(x).zip(&self.win) {
-            *b = v * w;
-        }
-        self.fft
-            .process_with_scratch(&mut self.buf, &mut self.spec, &mut self.scratch)
-            .expect("sizes from the plan");
+        self.fft.process_windowed(x, &self.win, &mut self.spec);
         for (s, v) in self.sum.iter_mut().zip(&self.spec) {
             *s += v.norm_sqr() as f64;
         }

@@ -13,11 +13,11 @@
 use std::f64::consts::PI;
 use std::sync::Arc;
 
-use realfft::{RealFftPlanner, RealToComplex};
 use rustfft::num_complex::{Complex, Complex32, Complex64};
 use rustfft::{Fft, FftPlanner};
 
 use super::decimate::{factor_for, Decimator};
+use super::real_fft::RealFft;
 use super::window::blackman;
 
 /// Flat half-width of the envelope band on each side of the pitch, Hz.
@@ -191,12 +191,12 @@ pub struct Downconverter {
     /// offset's rotation within one chunk of output samples.
     turns: Vec<Complex64>,
     h: Vec<Complex32>,
-    fwd: Arc<dyn RealToComplex<f32>>,
+    /// Forward real FFT that reads the input block without destroying it
+    /// (no copy per block) and un-packs with AVX, bit for bit `realfft`.
+    fwd: RealFft,
     inv: Arc<dyn Fft<f32>>,
     buf: Vec<f32>,
-    work: Vec<f32>,
     spec: Vec<Complex32>,
-    fscratch: Vec<Complex32>,
     narrow: Vec<Complex32>,
     /// (narrow index, spectrum bin) of every bin the band passes (|H| above
     /// -140 dB of its peak); the rest of `narrow` stays zero: the inverse
@@ -289,7 +289,7 @@ impl Downconverter {
                     .then_some((j as u32, k as u32))
             })
             .collect();
-        let fwd = RealFftPlanner::<f32>::new().plan_fft_forward(n);
+        let fwd = RealFft::new(n);
         let inv = FftPlanner::<f32>::new().plan_fft_inverse(nd);
         Downconverter {
             fs: fsf,
@@ -308,9 +308,7 @@ impl Downconverter {
                 .collect(),
             h,
             buf: vec![0.0; n],
-            work: fwd.make_input_vec(),
             spec: fwd.make_output_vec(),
-            fscratch: fwd.make_scratch_vec(),
             narrow: vec![Complex32::new(0.0, 0.0); nd],
             live,
             baseband: vec![Complex32::new(0.0, 0.0); nd],
@@ -478,10 +476,7 @@ impl Downconverter {
         if self.reference {
             return self.process_block_reference(out);
         }
-        self.work.copy_from_slice(&self.buf);
-        self.fwd
-            .process_with_scratch(&mut self.work, &mut self.spec, &mut self.fscratch)
-            .expect("buffer sizes come from the plan");
+        self.fwd.process(&self.buf, &mut self.spec);
         for &(j, k) in &self.live {
             self.narrow[j as usize] = self.spec[k as usize] * self.h[j as usize];
         }
@@ -555,10 +550,7 @@ impl Downconverter {
     /// transformed in place, the rotation chunk by chunk (test oracle).
     #[cfg(test)]
     fn process_block_reference(&mut self, out: &mut Vec<Complex32>) {
-        self.work.copy_from_slice(&self.buf);
-        self.fwd
-            .process_with_scratch(&mut self.work, &mut self.spec, &mut self.fscratch)
-            .expect("buffer sizes come from the plan");
+        self.fwd.process(&self.buf, &mut self.spec);
         self.narrow.fill(Complex32::new(0.0, 0.0));
         for &(j, k) in &self.live {
             self.narrow[j as usize] = self.spec[k as usize] * self.h[j as usize];

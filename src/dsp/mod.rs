@@ -14,6 +14,7 @@ pub mod freq;
 pub mod hum;
 pub mod key_steps;
 pub mod levels;
+pub mod real_fft;
 pub mod segment;
 pub mod stats;
 pub mod survey;

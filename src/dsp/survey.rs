@@ -4,13 +4,11 @@
 //! candidates; a keyed tone's frame power swings between on and off, a steady
 //! tone's does not, which tells them apart without segmenting anything yet.
 
-use std::sync::Arc;
-
-use realfft::{RealFftPlanner, RealToComplex};
 use rustfft::num_complex::Complex32;
 
 use super::decimate::{Decimator, PASS_FRACTION};
 use super::downconvert::plan_sizes;
+use super::real_fft::RealFft;
 use super::window::hann;
 
 /// A tone found in the survey.
@@ -154,10 +152,9 @@ pub struct Survey {
     nfft: usize,
     hop: usize,
     win: Vec<f32>,
-    fft: Arc<dyn RealToComplex<f32>>,
-    buf: Vec<f32>,
+    /// Windowed on the fly from the frame (no copy), bit for bit `realfft`.
+    fft: RealFft,
     spec: Vec<Complex32>,
-    scratch: Vec<Complex32>,
     chans: Vec<Chan>,
     /// Frames per spectrogram column, when the spectrogram is kept.
     gram_per_col: Option<usize>,
@@ -175,7 +172,7 @@ impl Survey {
         let factor = plan_sizes(fs_in).1;
         let fs = fs_in / factor as u32;
         let nfft = survey_nfft(fs);
-        let fft = RealFftPlanner::<f32>::new().plan_fft_forward(nfft);
+        let fft = RealFft::new(nfft);
         let nb = nfft / 2 + 1;
         Survey {
             fs,
@@ -183,9 +180,7 @@ impl Survey {
             nfft,
             hop: nfft / 2,
             win: hann(nfft),
-            buf: fft.make_input_vec(),
             spec: fft.make_output_vec(),
-            scratch: fft.make_scratch_vec(),
             fft,
             chans: (0..channels)
                 .map(|_| Chan {
@@ -245,12 +240,7 @@ impl Survey {
             let mut start = 0;
             while ch.pending.len() - start >= self.nfft {
                 let frame = &ch.pending[start..start + self.nfft];
-                for ((b, x), w) in self.buf.iter_mut().zip(frame).zip(&self.win) {
-                    *b = x * w;
-                }
-                self.fft
-                    .process_with_scratch(&mut self.buf, &mut self.spec, &mut self.scratch)
-                    .expect("buffer sizes come from the plan");
+                self.fft.process_windowed(frame, &self.win, &mut self.spec);
                 if let Some(per_col) = self.gram_per_col {
                     for (((s, sp), sp2), a) in self
                         .spec
